@@ -1,0 +1,1 @@
+//! CHSH: correlations per setting pair, S and its uncertainty and significance.

@@ -1,0 +1,1 @@
+//! Statistics: Poisson intervals, normal p-values, error propagation.

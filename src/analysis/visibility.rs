@@ -1,0 +1,1 @@
+//! Visibility fit N(θ) = A·(1 + V·cos 2(θ − θ0)).

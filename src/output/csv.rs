@@ -1,0 +1,1 @@
+//! CSV writer: one table after another, attributes as comment lines.

@@ -1,0 +1,1 @@
+//! HDF5 writer: groups, column datasets with `units` attributes, deflate on large arrays.

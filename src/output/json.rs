@@ -1,0 +1,1 @@
+//! JSON writer: the Document as nested objects.

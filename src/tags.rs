@@ -1,0 +1,34 @@
+//! The data model every layer shares: a channel number and its time tags,
+//! sorted ascending, in integer picoseconds.
+
+use std::borrow::Cow;
+
+/// A detector channel number as the time-to-digital converter reports it.
+pub type Channel = u32;
+
+/// One channel's time tags in integer picoseconds, ascending (equal values allowed).
+///
+/// `times_ps` borrows straight from a memory mapping for the per-channel array and
+/// container formats (zero copy) and is owned after demultiplexing interleaved records.
+#[derive(Debug, Clone)]
+pub struct ChannelTags<'a> {
+    pub channel: Channel,
+    /// Human name (e.g. `larch_plus`); empty when the format carries none.
+    pub name: String,
+    pub times_ps: Cow<'a, [u64]>,
+}
+
+impl<'a> ChannelTags<'a> {
+    pub fn owned(channel: Channel, name: impl Into<String>, times_ps: Vec<u64>) -> ChannelTags<'static> {
+        ChannelTags { channel, name: name.into(), times_ps: Cow::Owned(times_ps) }
+    }
+    pub fn borrowed(channel: Channel, name: impl Into<String>, times_ps: &'a [u64]) -> Self {
+        ChannelTags { channel, name: name.into(), times_ps: Cow::Borrowed(times_ps) }
+    }
+    pub fn len(&self) -> usize {
+        self.times_ps.len()
+    }
+    pub fn is_empty(&self) -> bool {
+        self.times_ps.is_empty()
+    }
+}

@@ -1,0 +1,1 @@
+//! Human units for display: ps/ns/µs/s and Hz/kHz/MHz.
