@@ -12,7 +12,7 @@ pub fn default_offsets_ps() -> Vec<i64> {
     (1..=5).flat_map(|k| [-k * 1_000_000, k * 1_000_000]).collect()
 }
 
-/// Σ_k n_A,k n_B,k / T_k and its Poisson variance factor, per pair, for one slicing.
+/// Σ_k n_A,k n_B,k / T_k and its Poisson variance factor, for one slicing.
 /// Multiply by W (value) and W² (variance) to get the estimate for a window.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct SliceProducts {
@@ -31,24 +31,32 @@ impl SliceProducts {
     }
 }
 
-/// Slice the block span into pieces of `slice_ps` (the last may be shorter) and form the
-/// products. B's slices are shifted by δ = `shift_ps`, so a slice compares A and B events
-/// that can coincide.
-pub fn slice_products(a: &[u64], b: &[u64], shift_ps: i64, span: BlockSpan, slice_ps: u64) -> SliceProducts {
+/// Events per time slice: the block span cut into pieces of `slice_ps` from its start
+/// (the last may be shorter). Every channel uses the same slicing.
+pub fn slice_counts(v: &[u64], span: BlockSpan, slice_ps: u64) -> Vec<u64> {
     let slice_ps = slice_ps.max(1);
-    let (mut prod, mut var, mut slices) = (0.0f64, 0.0f64, 0u64);
-    let mut start = span.start_ps;
-    while start < span.end_ps {
-        let end = start.saturating_add(slice_ps).min(span.end_ps);
-        let t = (end - start) as f64;
-        let na = count_in(a, start as i64, end as i64) as f64;
-        let nb = count_in(b, start as i64 + shift_ps, end as i64 + shift_ps) as f64;
-        prod += na * nb / t;
-        var += (na * na * nb + na * nb * nb) / (t * t);
-        slices += 1;
-        start = end;
+    let n = span.duration_ps().div_ceil(slice_ps);
+    (0..n)
+        .map(|k| {
+            let s = span.start_ps + k * slice_ps;
+            let e = (s + slice_ps).min(span.end_ps);
+            count_in(v, s as i64, e as i64)
+        })
+        .collect()
+}
+
+/// Form Σ n_A,k n_B,k / T_k (and its variance factor) from per-slice counts.
+pub fn products(na: &[u64], nb: &[u64], span: BlockSpan, slice_ps: u64) -> SliceProducts {
+    let slice_ps = slice_ps.max(1);
+    let (mut prod, mut var) = (0.0f64, 0.0f64);
+    for (k, (&x, &y)) in na.iter().zip(nb).enumerate() {
+        let s = span.start_ps + k as u64 * slice_ps;
+        let t = ((s + slice_ps).min(span.end_ps) - s) as f64;
+        let (x, y) = (x as f64, y as f64);
+        prod += x * y / t;
+        var += (x * x * y + x * y * y) / (t * t);
     }
-    SliceProducts { rate_product_per_ps: prod, variance_per_ps2: var, slices }
+    SliceProducts { rate_product_per_ps: prod, variance_per_ps2: var, slices: na.len() as u64 }
 }
 
 /// Events with start ≤ t < end.
@@ -91,8 +99,8 @@ mod tests {
         let a: Vec<u64> = (0..1000).map(|i| i * 1000).collect();
         let b: Vec<u64> = (0..500).map(|i| i * 2000 + 7).collect();
         let span = BlockSpan { start_ps: 0, end_ps: 1_000_000 };
-        let one = slice_products(&a, &b, 0, span, 1_000_000);
-        let ten = slice_products(&a, &b, 0, span, 100_000);
+        let one = products(&slice_counts(&a, span, 1_000_000), &slice_counts(&b, span, 1_000_000), span, 1_000_000);
+        let ten = products(&slice_counts(&a, span, 100_000), &slice_counts(&b, span, 100_000), span, 100_000);
         assert_eq!(one.slices, 1);
         assert_eq!(ten.slices, 10);
         let expect = 1000.0 * 500.0 / 1e6;

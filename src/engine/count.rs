@@ -2,10 +2,11 @@
 //! counts, both accidental estimates, net counts and CAR.
 
 use super::accidentals::{self, SliceProducts};
+use super::stream::{ChannelSummary, PairResult, PairTask, Streamer};
 use super::delays::Delays;
 use super::kernels::WindowCount;
 use super::tables::{BlockSpan, BlockTables, CoincidenceRow, Estimate, SinglesRow};
-use super::{parallel, rule};
+use super::rule;
 use crate::{Channel, ChannelTags, Error, Result};
 
 /// What to count in a block.
@@ -31,20 +32,9 @@ pub fn block_span(tags: &[ChannelTags<'_>]) -> Option<BlockSpan> {
     Some(BlockSpan { start_ps: *start, end_ps: end + 1 })
 }
 
-/// Singles of every channel over the block span.
+/// Singles of every channel over the block span, sorted by channel.
 pub fn singles(tags: &[ChannelTags<'_>], span: BlockSpan) -> Vec<SinglesRow> {
-    let live_ps = span.duration_ps();
-    tags.iter()
-        .map(|t| SinglesRow {
-            channel: t.channel,
-            name: t.name.clone(),
-            events: t.len() as u64,
-            first_ps: t.times_ps.first().copied().unwrap_or(0),
-            last_ps: t.times_ps.last().copied().unwrap_or(0),
-            live_time_ps: live_ps,
-            rate_hz: t.len() as f64 / (live_ps as f64 * 1e-12),
-        })
-        .collect()
+    singles_rows(&summaries(tags, span, span.duration_ps().max(1)), span)
 }
 
 /// The tags of channel `ch`, or an error listing the channels there are.
@@ -85,33 +75,131 @@ pub fn check_offsets(offsets_ps: &[i64], window_ps: u64) -> Result<()> {
     Ok(())
 }
 
-/// Count one block.
+/// Count one block (whole-file path).
 pub fn count_block(label: &str, tags: &[ChannelTags<'_>], cfg: &CountConfig) -> Result<BlockTables> {
-    rule::check_window(cfg.window_ps, "--window-ps")?;
-    check_offsets(&cfg.offsets_ps, cfg.window_ps)?;
+    check_count(cfg)?;
     let pairs = resolve_pairs(tags, &cfg.pairs)?;
     let span = block_span(tags).ok_or_else(|| Error::Usage(format!("block {label}: every channel is empty")))?;
-    let mut rows = Vec::with_capacity(pairs.len());
+    let task = count_task(cfg);
+    let mut results = Vec::with_capacity(pairs.len());
     for &(ca, cb) in &pairs {
-        let (a, b) = (channel(tags, ca)?, channel(tags, cb)?);
         let delta = cfg.delays.relative(ca, cb);
         rule::check_shift(delta, "relative delay")?;
-        let half = rule::half_width_ps(cfg.window_ps);
-        let peak = parallel::count_window(a, b, delta, half);
-        let off: Vec<u64> = cfg.offsets_ps.iter().map(|&o| parallel::count_window(a, b, delta + o, half).pairs).collect();
-        let products = accidentals::slice_products(a, b, delta, span, cfg.slice_ps);
-        rows.push(coincidence_row((ca, cb), delta, cfg.window_ps, peak, &off, &cfg.offsets_ps, &products));
+        results.push(((ca, cb), delta, task.run_whole(channel(tags, ca)?, channel(tags, cb)?, delta)));
     }
-    Ok(BlockTables {
+    Ok(assemble_count(label, span, &summaries(tags, span, cfg.slice_ps), &results, cfg))
+}
+
+/// Count one block from chunks in time order (bounded-memory path); equal to
+/// [`count_block`] on the same events.
+pub fn count_stream<'a, I>(label: &str, chunks: I, cfg: &CountConfig) -> Result<BlockTables>
+where
+    I: Iterator<Item = Result<Vec<ChannelTags<'a>>>>,
+{
+    check_count(cfg)?;
+    let mut s = Streamer::new(count_task(cfg), cfg.pairs.clone(), cfg.delays.clone(), cfg.slice_ps);
+    for chunk in chunks {
+        s.push(&chunk?)?;
+    }
+    let (span, channels, results) = finish_stream(s, label, &cfg.pairs)?;
+    Ok(assemble_count(label, span, &channels, &results, cfg))
+}
+
+/// Finish a stream: its span, channel summaries and pair results in the configured order.
+pub fn finish_stream(s: Streamer, label: &str, wanted: &[(Channel, Channel)]) -> Result<(BlockSpan, Vec<ChannelSummary>, Vec<PairOutcome>)> {
+    let (start, channels, mut results) = s.finish();
+    let end = channels.iter().filter_map(|c| c.last_ps).max();
+    let (Some(start_ps), Some(last)) = (start, end) else {
+        return Err(Error::Usage(format!("block {label}: every channel is empty")));
+    };
+    for &(a, b) in wanted {
+        for c in [a, b] {
+            if !channels.iter().any(|s| s.channel == c) {
+                return Err(Error::Usage(format!("channel {c} is not in the inputs")));
+            }
+        }
+    }
+    if !wanted.is_empty() {
+        results.sort_by_key(|r| wanted.iter().position(|p| *p == r.0));
+    }
+    Ok((BlockSpan { start_ps, end_ps: last + 1 }, channels, results))
+}
+
+/// A pair, its δ and what its task accumulated.
+pub type PairOutcome = ((Channel, Channel), i64, PairResult);
+
+fn check_count(cfg: &CountConfig) -> Result<()> {
+    rule::check_window(cfg.window_ps, "--window-ps")?;
+    check_offsets(&cfg.offsets_ps, cfg.window_ps)
+}
+
+/// The peak window first, then each off-peak offset.
+fn count_task(cfg: &CountConfig) -> PairTask {
+    let mut centres_ps = vec![0];
+    centres_ps.extend_from_slice(&cfg.offsets_ps);
+    PairTask::Count { centres_ps, half_ps: rule::half_width_ps(cfg.window_ps) }
+}
+
+/// Channel summaries of whole-file tags, sorted by channel.
+pub fn summaries(tags: &[ChannelTags<'_>], span: BlockSpan, slice_ps: u64) -> Vec<ChannelSummary> {
+    let mut v: Vec<ChannelSummary> = tags
+        .iter()
+        .map(|t| ChannelSummary {
+            channel: t.channel,
+            name: t.name.clone(),
+            events: t.len() as u64,
+            first_ps: t.times_ps.first().copied(),
+            last_ps: t.times_ps.last().copied(),
+            slice_counts: accidentals::slice_counts(&t.times_ps, span, slice_ps),
+        })
+        .collect();
+    v.sort_by_key(|c| c.channel);
+    v
+}
+
+/// Singles rows from channel summaries.
+pub fn singles_rows(channels: &[ChannelSummary], span: BlockSpan) -> Vec<SinglesRow> {
+    let live_ps = span.duration_ps();
+    channels
+        .iter()
+        .map(|c| SinglesRow {
+            channel: c.channel,
+            name: c.name.clone(),
+            events: c.events,
+            first_ps: c.first_ps.unwrap_or(0),
+            last_ps: c.last_ps.unwrap_or(0),
+            live_time_ps: live_ps,
+            rate_hz: c.events as f64 / (live_ps as f64 * 1e-12),
+        })
+        .collect()
+}
+
+/// Analytic-accidental products of a pair from its channels' slice counts.
+pub fn pair_products(channels: &[ChannelSummary], a: Channel, b: Channel, span: BlockSpan, slice_ps: u64) -> SliceProducts {
+    let counts = |c: Channel| channels.iter().find(|s| s.channel == c).map(|s| s.slice_counts.clone()).unwrap_or_default();
+    accidentals::products(&counts(a), &counts(b), span, slice_ps)
+}
+
+fn assemble_count(label: &str, span: BlockSpan, channels: &[ChannelSummary], results: &[PairOutcome], cfg: &CountConfig) -> BlockTables {
+    let rows = results
+        .iter()
+        .map(|((a, b), delta, r)| {
+            let PairResult::Count(v) = r else { unreachable!("count task gives counts") };
+            let off: Vec<u64> = v[1..].iter().map(|c| c.pairs).collect();
+            let products = pair_products(channels, *a, *b, span, cfg.slice_ps);
+            coincidence_row((*a, *b), *delta, cfg.window_ps, v[0], &off, &cfg.offsets_ps, &products)
+        })
+        .collect();
+    BlockTables {
         label: label.to_string(),
         span: Some(span),
-        singles: singles(tags, span),
-        delays_ps: delays_used(tags, &cfg.delays),
+        singles: singles_rows(channels, span),
+        delays_ps: channels.iter().map(|c| (c.channel, cfg.delays.get(c.channel))).collect(),
         window_ps: Some(cfg.window_ps),
         coincidences: rows,
         scans: vec![],
         sweeps: vec![],
-    })
+    }
 }
 
 /// Every present channel's delay as used.

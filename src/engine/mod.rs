@@ -9,6 +9,7 @@ pub mod kernels;
 pub mod parallel;
 pub mod rule;
 pub mod scan;
+pub mod stream;
 pub mod sweep;
 pub mod tables;
 

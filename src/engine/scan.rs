@@ -1,10 +1,11 @@
 //! Delay scan: the histogram of Δ per pair, its peak (delay estimate with σ, FWHM, height,
 //! background), and delays proposed for every channel relative to a reference.
 
-use super::count::{channel, resolve_pairs};
+use super::count::{channel, finish_stream, resolve_pairs, PairOutcome};
 use super::delays::Delays;
-use super::tables::{PeakFit, ScanResult};
-use super::{parallel, rule};
+use super::rule;
+use super::stream::{ChannelSummary, PairResult, PairTask, Streamer};
+use super::tables::{BlockSpan, PeakFit, ScanResult};
 use crate::{Channel, ChannelTags, Error, Result};
 
 /// Histogram range and resolution.
@@ -20,8 +21,34 @@ pub struct ScanConfig {
 /// FWHM of a Gaussian in units of σ: 2√(2 ln 2).
 pub const FWHM_PER_SIGMA: f64 = 2.354_820_045_030_949;
 
-/// Scan every pair of a block.
+/// Scan every pair of a block (whole-file path).
 pub fn scan_block(tags: &[ChannelTags<'_>], cfg: &ScanConfig) -> Result<Vec<ScanResult>> {
+    let task = check_scan(cfg)?;
+    let pairs = resolve_pairs(tags, &cfg.pairs)?;
+    pairs
+        .iter()
+        .map(|&(ca, cb)| {
+            let delta = cfg.delays.relative(ca, cb);
+            rule::check_shift(delta, "relative delay")?;
+            Ok(scan_result(&((ca, cb), delta, task.run_whole(channel(tags, ca)?, channel(tags, cb)?, delta)), cfg))
+        })
+        .collect()
+}
+
+/// Scan from chunks in time order (bounded memory); equal to [`scan_block`].
+pub fn scan_stream<'a, I>(chunks: I, cfg: &ScanConfig) -> Result<(BlockSpan, Vec<ChannelSummary>, Vec<ScanResult>)>
+where
+    I: Iterator<Item = Result<Vec<ChannelTags<'a>>>>,
+{
+    let mut s = Streamer::new(check_scan(cfg)?, cfg.pairs.clone(), cfg.delays.clone(), u64::MAX);
+    for chunk in chunks {
+        s.push(&chunk?)?;
+    }
+    let (span, channels, results) = finish_stream(s, "scan", &cfg.pairs)?;
+    Ok((span, channels, results.iter().map(|r| scan_result(r, cfg)).collect()))
+}
+
+fn check_scan(cfg: &ScanConfig) -> Result<PairTask> {
     if cfg.span_ps == 0 || cfg.bin_ps == 0 {
         return Err(Error::Usage(format!("scan: span {} ps and bin {} ps must both be > 0", cfg.span_ps, cfg.bin_ps)));
     }
@@ -30,18 +57,13 @@ pub fn scan_block(tags: &[ChannelTags<'_>], cfg: &ScanConfig) -> Result<Vec<Scan
     if nbins > 50_000_000 {
         return Err(Error::Usage(format!("scan: {nbins} bins is too many; widen --bin-ps or narrow --span-ps")));
     }
-    let pairs = resolve_pairs(tags, &cfg.pairs)?;
-    pairs
-        .iter()
-        .map(|&(ca, cb)| {
-            let (a, b) = (channel(tags, ca)?, channel(tags, cb)?);
-            let delta = cfg.delays.relative(ca, cb);
-            rule::check_shift(delta, "relative delay")?;
-            let counts = parallel::histogram(a, b, delta, cfg.span_ps, cfg.bin_ps);
-            let peak = fit_peak(&counts, cfg.span_ps, cfg.bin_ps);
-            Ok(ScanResult { a: ca, b: cb, rel_delay_ps: delta, span_ps: cfg.span_ps, bin_ps: cfg.bin_ps, counts, peak })
-        })
-        .collect()
+    Ok(PairTask::Histogram { span_ps: cfg.span_ps, bin_ps: cfg.bin_ps })
+}
+
+fn scan_result(((ca, cb), delta, r): &PairOutcome, cfg: &ScanConfig) -> ScanResult {
+    let PairResult::Histogram(counts) = r else { unreachable!("histogram task gives a histogram") };
+    let peak = fit_peak(counts, cfg.span_ps, cfg.bin_ps);
+    ScanResult { a: *ca, b: *cb, rel_delay_ps: *delta, span_ps: cfg.span_ps, bin_ps: cfg.bin_ps, counts: counts.clone(), peak }
 }
 
 /// Centre of bin i's integer support: Δ from −span + i·bin to −span + (i+1)·bin − 1.

@@ -1,10 +1,14 @@
 //! Window sweep: for each window, coincidences, accidentals, net counts, CAR, from one
 //! profile pass per window position, and a recommended window by a documented criterion.
 
-use super::count::{channel, check_offsets, coincidence_row, resolve_pairs, CountConfig};
+use super::count::{
+    block_span, channel, check_offsets, coincidence_row, finish_stream, pair_products, resolve_pairs, summaries, CountConfig,
+    PairOutcome,
+};
 use super::kernels::WindowCount;
-use super::tables::{SweepTable, BlockSpan};
-use super::{accidentals, parallel, rule};
+use super::rule;
+use super::stream::{ChannelSummary, PairResult, PairTask, Streamer};
+use super::tables::{BlockSpan, SweepTable};
 use crate::{ChannelTags, Error, Result};
 
 /// How the recommended window is chosen.
@@ -40,8 +44,38 @@ pub fn window_range(start_ps: u64, stop_ps: u64, step_ps: u64) -> Result<Vec<u64
     Ok((0..n).map(|i| start_ps + i * step_ps).collect())
 }
 
-/// Sweep every pair of a block. `base.window_ps` is ignored; `windows_ps` are used.
+/// Sweep every pair of a block (whole-file path). `base.window_ps` is ignored.
 pub fn sweep_block(tags: &[ChannelTags<'_>], base: &CountConfig, windows_ps: &[u64], criterion: Criterion) -> Result<Vec<SweepTable>> {
+    let windows = check_windows(windows_ps, base)?;
+    let span = block_span(tags).ok_or_else(|| Error::Usage("sweep: every channel is empty".into()))?;
+    let pairs = resolve_pairs(tags, &base.pairs)?;
+    let task = profile_task(&windows, base);
+    let mut results = Vec::with_capacity(pairs.len());
+    for &(ca, cb) in &pairs {
+        let delta = base.delays.relative(ca, cb);
+        rule::check_shift(delta, "relative delay")?;
+        results.push(((ca, cb), delta, task.run_whole(channel(tags, ca)?, channel(tags, cb)?, delta)));
+    }
+    let channels = summaries(tags, span, base.slice_ps);
+    Ok(results.iter().map(|r| sweep_table(r, &channels, span, base, &windows, criterion)).collect())
+}
+
+/// Sweep from chunks in time order (bounded memory); equal to [`sweep_block`].
+pub fn sweep_stream<'a, I>(chunks: I, base: &CountConfig, windows_ps: &[u64], criterion: Criterion) -> Result<(BlockSpan, Vec<ChannelSummary>, Vec<SweepTable>)>
+where
+    I: Iterator<Item = Result<Vec<ChannelTags<'a>>>>,
+{
+    let windows = check_windows(windows_ps, base)?;
+    let mut s = Streamer::new(profile_task(&windows, base), base.pairs.clone(), base.delays.clone(), base.slice_ps);
+    for chunk in chunks {
+        s.push(&chunk?)?;
+    }
+    let (span, channels, results) = finish_stream(s, "sweep", &base.pairs)?;
+    let tables = results.iter().map(|r| sweep_table(r, &channels, span, base, &windows, criterion)).collect();
+    Ok((span, channels, tables))
+}
+
+fn check_windows(windows_ps: &[u64], base: &CountConfig) -> Result<Vec<u64>> {
     let mut windows = windows_ps.to_vec();
     windows.sort_unstable();
     windows.dedup();
@@ -52,36 +86,37 @@ pub fn sweep_block(tags: &[ChannelTags<'_>], base: &CountConfig, windows_ps: &[u
         rule::check_window(w, "sweep window")?;
     }
     check_offsets(&base.offsets_ps, w_max)?;
-    let span = super::count::block_span(tags).ok_or_else(|| Error::Usage("sweep: every channel is empty".into()))?;
-    let pairs = resolve_pairs(tags, &base.pairs)?;
-    pairs.iter().map(|&(ca, cb)| sweep_pair(tags, (ca, cb), base, &windows, span, criterion)).collect()
+    Ok(windows)
 }
 
-fn sweep_pair(
-    tags: &[ChannelTags<'_>],
-    (ca, cb): (crate::Channel, crate::Channel),
+fn profile_task(windows: &[u64], base: &CountConfig) -> PairTask {
+    let mut centres_ps = vec![0];
+    centres_ps.extend_from_slice(&base.offsets_ps);
+    PairTask::Profile { centres_ps, max_half_ps: rule::half_width_ps(*windows.last().unwrap_or(&0)) }
+}
+
+fn sweep_table(
+    ((ca, cb), delta, result): &PairOutcome,
+    channels: &[ChannelSummary],
+    span: BlockSpan,
     base: &CountConfig,
     windows: &[u64],
-    span: BlockSpan,
     criterion: Criterion,
-) -> Result<SweepTable> {
-    let (a, b) = (channel(tags, ca)?, channel(tags, cb)?);
-    let delta = base.delays.relative(ca, cb);
-    rule::check_shift(delta, "relative delay")?;
-    let max_half = rule::half_width_ps(*windows.last().unwrap_or(&0));
-    let peak = Cumulative::new(parallel::profile(a, b, delta, max_half));
-    let offs: Vec<Cumulative> = base.offsets_ps.iter().map(|&o| Cumulative::new(parallel::profile(a, b, delta + o, max_half))).collect();
-    let products = accidentals::slice_products(a, b, delta, span, base.slice_ps);
+) -> SweepTable {
+    let PairResult::Profile(profiles) = result else { unreachable!("profile task gives profiles") };
+    let peak = Cumulative::new(&profiles[0]);
+    let offs: Vec<Cumulative> = profiles[1..].iter().map(|p| Cumulative::new(p)).collect();
+    let products = pair_products(channels, *ca, *cb, span, base.slice_ps);
     let rows: Vec<_> = windows
         .iter()
         .map(|&w| {
             let h = rule::half_width_ps(w) as usize;
             let off_counts: Vec<u64> = offs.iter().map(|c| c.at(h).pairs).collect();
-            coincidence_row((ca, cb), delta, w, peak.at(h), &off_counts, &base.offsets_ps, &products)
+            coincidence_row((*ca, *cb), *delta, w, peak.at(h), &off_counts, &base.offsets_ps, &products)
         })
         .collect();
     let recommended_window_ps = recommend(&rows, criterion);
-    Ok(SweepTable { a: ca, b: cb, rel_delay_ps: delta, rows, recommended_window_ps, criterion: criterion.name() })
+    SweepTable { a: *ca, b: *cb, rel_delay_ps: *delta, rows, recommended_window_ps, criterion: criterion.name() }
 }
 
 /// Prefix sums of a profile: counts for every half-width at once.
@@ -91,7 +126,7 @@ struct Cumulative {
 }
 
 impl Cumulative {
-    fn new(profile: Vec<u64>) -> Self {
+    fn new(profile: &[u64]) -> Self {
         let p = profile.len() / 2;
         let prefix = |v: &[u64]| {
             v.iter()
