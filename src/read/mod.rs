@@ -8,7 +8,9 @@
 //! [`open_inputs`].
 
 pub mod channel_array;
+pub mod check;
 pub mod container;
+pub mod convert;
 pub mod layout;
 pub mod mapping;
 pub mod records;
