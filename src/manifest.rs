@@ -229,7 +229,8 @@ pub struct BlockSpec {
     pub format: InputFormat,
     /// Input strings for the reader, paths relative to the manifest's directory.
     pub inputs: Vec<String>,
-    /// Record layout file (format `records` only), relative to the manifest's directory.
+    /// Record layout (format `records` only): a layout file relative to the manifest's
+    /// directory, or a compact layout spec such as `rec=16,time=0:8:le,chan=8:4:le,tick_ps=1`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub layout: Option<String>,
     /// Live time of the block (s), when known; otherwise taken from the tags.
@@ -322,9 +323,11 @@ impl Manifest {
             .collect()
     }
 
-    /// The block's record layout file, resolved.
-    pub fn block_layout(&self, block: &BlockSpec) -> Option<PathBuf> {
-        block.layout.as_deref().map(|p| self.resolve(p))
+    /// The block's record layout as `RecordLayout::from_arg` takes it: a file path resolved
+    /// against the manifest's directory, or a compact spec (holds `=`) unchanged.
+    pub fn block_layout(&self, block: &BlockSpec) -> Option<String> {
+        let l = block.layout.as_deref()?;
+        Some(if l.contains('=') { l.to_string() } else { self.resolve(l).display().to_string() })
     }
 
     /// The delays file, resolved.

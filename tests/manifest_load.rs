@@ -42,7 +42,10 @@ fn four_detector_fixture_loads() {
     let arrays = &m.blocks[1];
     assert_eq!(arrays.format, InputFormat::Arrays);
     assert_eq!(m.block_inputs(arrays)[0], format!("1={}", dir.join("abp/ch1.u64").display()));
-    assert_eq!(m.block_layout(&m.blocks[2]), Some(dir.join("records_layout.toml")));
+    assert_eq!(m.block_layout(&m.blocks[2]), Some(dir.join("records_layout.toml").display().to_string()));
+    let mut spec = m.blocks[2].clone();
+    spec.layout = Some("rec=16,time=0:8:le,chan=8:4:le,tick_ps=1".into());
+    assert_eq!(m.block_layout(&spec).as_deref(), Some("rec=16,time=0:8:le,chan=8:4:le,tick_ps=1"));
     assert_eq!(m.blocks[3].live_time_s, None);
 }
 

@@ -3,6 +3,7 @@
 //! dark counts, jitter, cable delay and dead time. Deterministic per seed, whatever the thread count.
 
 pub mod plan;
+pub mod run;
 pub mod rng;
 
 use crate::manifest::{Port, Side};
@@ -10,7 +11,8 @@ use crate::{Channel, ChannelTags, Error, Result};
 use rayon::prelude::*;
 use rng::{mix_seed, Rng};
 
-pub use plan::{plan_blocks, BlockPlan, SettingLabel};
+pub use plan::{chsh_labels, plan_blocks, BlockPlan, SettingLabel};
+pub use run::{write_run, RunConfig, RunSummary};
 
 /// What decides the two outcomes of a pair.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
