@@ -1,1 +1,411 @@
-//! The file layout: engine and analysis results → Document. docs/hdf5-layout.md is generated from here.
+//! The file layout: engine and analysis results → Document. docs/hdf5-layout.md is generated from here
+//! ([`describe_layout`] renders a sample Document), so the documentation cannot drift from the code.
+//! Other stages add their own groups beside `/blocks` with `doc.root.groups.push(group)`.
+
+use super::provenance::Provenance;
+use super::{AttrValue, ColumnData, Document, Group, Table};
+use crate::engine::tables::{BlockSpan, BlockTables, CoincidenceRow, Estimate, PeakFit, ScanResult, SinglesRow, SweepTable};
+use crate::Channel;
+
+/// Bumped whenever a path, dtype or unit below changes.
+pub const LAYOUT_VERSION: u64 = 1;
+
+/// The whole output of a run: provenance at the root, `/provenance/inputs`, and one
+/// group per block under `/blocks/<label>`.
+pub fn run_document(blocks: &[BlockTables], provenance: &Provenance) -> Document {
+    let mut root = Group::new("");
+    root.attrs = provenance.to_attrs();
+    root.attrs.push(("layout_version".into(), AttrValue::U64(LAYOUT_VERSION)));
+    root.groups.push(provenance.to_group());
+    let mut all = Group::new("blocks");
+    all.groups = blocks.iter().map(block_group).collect();
+    root.groups.push(all);
+    Document { root }
+}
+
+/// Group name of a channel pair: `<a>-<b>`.
+pub fn pair_name(a: Channel, b: Channel) -> String {
+    format!("{a}-{b}")
+}
+
+/// `/blocks/<label>`: span and window attributes, singles, delays, coincidences,
+/// off-peak windows, `scans/<a>-<b>` histograms and `sweeps/<a>-<b>` tables.
+pub fn block_group(b: &BlockTables) -> Group {
+    let mut g = Group::new(b.label.clone());
+    g.attrs = block_attrs(b);
+    g.tables = vec![
+        singles_table(&b.singles),
+        delays_table(&b.delays_ps),
+        coincidence_table("coincidences", &b.coincidences),
+        off_peak_table(&b.coincidences),
+    ];
+    let mut scans = Group::new("scans");
+    scans.tables = b.scans.iter().map(scan_table).collect();
+    let mut sweeps = Group::new("sweeps");
+    sweeps.tables = b.sweeps.iter().map(sweep_table).collect();
+    g.groups = vec![scans, sweeps];
+    g
+}
+
+fn block_attrs(b: &BlockTables) -> Vec<(String, AttrValue)> {
+    let mut a = vec![("label".to_string(), AttrValue::Str(b.label.clone()))];
+    if let Some(w) = b.window_ps {
+        a.push(("window_ps".into(), AttrValue::U64(w)));
+    }
+    if let Some(BlockSpan { start_ps, end_ps }) = b.span {
+        a.push(("span_start_ps".into(), AttrValue::U64(start_ps)));
+        a.push(("span_end_ps".into(), AttrValue::U64(end_ps)));
+        a.push(("span_s".into(), AttrValue::F64(ps_to_s(end_ps - start_ps))));
+    }
+    a
+}
+
+fn ps_to_s(ps: u64) -> f64 {
+    ps as f64 * 1e-12
+}
+
+fn u64s<T>(rows: &[T], f: impl Fn(&T) -> u64) -> ColumnData {
+    ColumnData::U64(rows.iter().map(f).collect())
+}
+
+fn i64s<T>(rows: &[T], f: impl Fn(&T) -> i64) -> ColumnData {
+    ColumnData::I64(rows.iter().map(f).collect())
+}
+
+fn f64s<T>(rows: &[T], f: impl Fn(&T) -> f64) -> ColumnData {
+    ColumnData::F64(rows.iter().map(f).collect())
+}
+
+fn singles_table(rows: &[SinglesRow]) -> Table {
+    Table::new("singles")
+        .col("channel", "", u64s(rows, |r| u64::from(r.channel)))
+        .col("name", "", ColumnData::Str(rows.iter().map(|r| r.name.clone()).collect()))
+        .col("events", "counts", u64s(rows, |r| r.events))
+        .col("first_ps", "ps", u64s(rows, |r| r.first_ps))
+        .col("last_ps", "ps", u64s(rows, |r| r.last_ps))
+        .col("live_time_s", "s", f64s(rows, |r| ps_to_s(r.live_time_ps)))
+        .col("rate_hz", "Hz", f64s(rows, |r| r.rate_hz))
+}
+
+fn delays_table(delays: &[(Channel, i64)]) -> Table {
+    Table::new("delays")
+        .col("channel", "", u64s(delays, |d| u64::from(d.0)))
+        .col("delay_ps", "ps", i64s(delays, |d| d.1))
+}
+
+/// One row per (pair, window): the block's coincidences and each sweep use this shape.
+fn coincidence_table(name: &str, rows: &[CoincidenceRow]) -> Table {
+    let est = |f: fn(&CoincidenceRow) -> Estimate| (f64s(rows, move |r| f(r).value), f64s(rows, move |r| f(r).sigma));
+    let (acc_a, acc_a_s) = est(|r| r.acc_analytic);
+    let (acc_m, acc_m_s) = est(|r| r.acc_measured);
+    let (net, net_s) = est(|r| r.net);
+    Table::new(name)
+        .col("a", "", u64s(rows, |r| u64::from(r.a)))
+        .col("b", "", u64s(rows, |r| u64::from(r.b)))
+        .col("rel_delay_ps", "ps", i64s(rows, |r| r.rel_delay_ps))
+        .col("window_ps", "ps", u64s(rows, |r| r.window_ps))
+        .col("coincidences", "counts", u64s(rows, |r| r.coincidences))
+        .col("heralded", "counts", u64s(rows, |r| r.heralded))
+        .col("acc_analytic", "counts", acc_a)
+        .col("acc_analytic_sigma", "counts", acc_a_s)
+        .col("acc_measured", "counts", acc_m)
+        .col("acc_measured_sigma", "counts", acc_m_s)
+        .col("net", "counts", net)
+        .col("net_sigma", "counts", net_s)
+        .col("car", "1", f64s(rows, |r| r.car))
+        .col("acc_agreement_sigma", "1", f64s(rows, |r| r.acc_agreement_sigma))
+}
+
+/// The raw off-peak window counts behind `acc_measured`: one row per pair and offset.
+fn off_peak_table(rows: &[CoincidenceRow]) -> Table {
+    let flat: Vec<(&CoincidenceRow, i64, u64)> = rows
+        .iter()
+        .flat_map(|r| r.acc_offsets_ps.iter().zip(&r.acc_offset_counts).map(move |(&o, &n)| (r, o, n)))
+        .collect();
+    Table::new("off_peak_windows")
+        .col("a", "", u64s(&flat, |f| u64::from(f.0.a)))
+        .col("b", "", u64s(&flat, |f| u64::from(f.0.b)))
+        .col("window_ps", "ps", u64s(&flat, |f| f.0.window_ps))
+        .col("offset_ps", "ps", i64s(&flat, |f| f.1))
+        .col("counts", "counts", u64s(&flat, |f| f.2))
+}
+
+fn scan_table(s: &ScanResult) -> Table {
+    let mut t = Table::new(pair_name(s.a, s.b))
+        .col("counts", "counts", ColumnData::U64(s.counts.clone()))
+        .col("bin_edges_ps", "ps", ColumnData::I64(s.bin_edges_ps()))
+        .attr("a", AttrValue::U64(u64::from(s.a)))
+        .attr("b", AttrValue::U64(u64::from(s.b)))
+        .attr("rel_delay_ps", AttrValue::I64(s.rel_delay_ps))
+        .attr("span_ps", AttrValue::U64(s.span_ps))
+        .attr("bin_ps", AttrValue::U64(s.bin_ps))
+        .attr("peak_found", AttrValue::U64(u64::from(s.peak.is_some())));
+    if let Some(p) = &s.peak {
+        t.attrs.extend(peak_attrs(p));
+    }
+    t
+}
+
+fn peak_attrs(p: &PeakFit) -> Vec<(String, AttrValue)> {
+    [
+        ("peak_delay_ps", p.delay_ps),
+        ("peak_delay_sigma_ps", p.delay_sigma_ps),
+        ("peak_fwhm_ps", p.fwhm_ps),
+        ("peak_height", p.height),
+        ("peak_background", p.background),
+        ("peak_net_counts", p.net_counts),
+    ]
+    .into_iter()
+    .map(|(k, v)| (k.to_string(), AttrValue::F64(v)))
+    .collect()
+}
+
+fn sweep_table(s: &SweepTable) -> Table {
+    let mut t = coincidence_table(&pair_name(s.a, s.b), &s.rows);
+    t.attrs = vec![
+        ("a".into(), AttrValue::U64(u64::from(s.a))),
+        ("b".into(), AttrValue::U64(u64::from(s.b))),
+        ("rel_delay_ps".into(), AttrValue::I64(s.rel_delay_ps)),
+        ("recommended_window_ps".into(), AttrValue::U64(s.recommended_window_ps)),
+        ("criterion".into(), AttrValue::Str(s.criterion.clone())),
+    ];
+    t
+}
+
+// ---------------------------------------------------------------------------------------
+// The documented layout.
+
+/// What an entry of the documented layout is.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
+pub enum EntryKind {
+    Group,
+    Attribute,
+    Dataset,
+}
+
+/// One documented path: a group, an attribute (`path@name`) or a dataset.
+#[derive(Debug, Clone, PartialEq, Eq, PartialOrd, Ord)]
+pub struct LayoutEntry {
+    pub kind: EntryKind,
+    pub path: String,
+    /// `u64`, `i64`, `f64`, `string`; empty for groups.
+    pub dtype: String,
+    /// Datasets only: the `units` attribute.
+    pub unit: String,
+    /// Datasets only: what one element of the 1-D dataset is.
+    pub rows: String,
+}
+
+/// A sample run with one block and one pair of each kind; names that vary per run are
+/// placeholders (`{label}`, `{a}-{b}`, `param.{key}`).
+pub fn sample_document() -> Document {
+    let mut prov = Provenance::new(vec!["tagsieve".into(), "{subcommand}".into(), "...".into()])
+        .param("{key}", AttrValue::Str("{value}".into()));
+    prov.created_utc = "{created_utc}".into();
+    prov.tool_version = "{version}".into();
+    prov.inputs.push(super::provenance::InputRecord { path: "{input}".into(), size_bytes: 0, xxh3: "{xxh3}".into() });
+    let mut doc = run_document(&[sample_block()], &prov);
+    rename_pairs(&mut doc.root);
+    doc
+}
+
+fn rename_pairs(g: &mut Group) {
+    if g.name == "scans" || g.name == "sweeps" {
+        for t in &mut g.tables {
+            t.name = "{a}-{b}".into();
+        }
+    }
+    g.groups.iter_mut().for_each(rename_pairs);
+}
+
+fn sample_block() -> BlockTables {
+    let est = Estimate { value: 1.0, sigma: 1.0 };
+    let row = CoincidenceRow {
+        a: 1,
+        b: 2,
+        rel_delay_ps: 0,
+        window_ps: 1000,
+        coincidences: 10,
+        heralded: 10,
+        acc_analytic: est,
+        acc_measured: est,
+        acc_offset_counts: vec![1],
+        acc_offsets_ps: vec![100_000],
+        net: est,
+        car: 10.0,
+        acc_agreement_sigma: 0.0,
+    };
+    let peak = PeakFit { delay_ps: 0.0, delay_sigma_ps: 1.0, fwhm_ps: 1.0, height: 1.0, background: 0.0, net_counts: 1.0 };
+    BlockTables {
+        label: "{label}".into(),
+        span: Some(BlockSpan { start_ps: 0, end_ps: 1 }),
+        singles: vec![SinglesRow { channel: 1, name: "A".into(), events: 1, first_ps: 0, last_ps: 0, live_time_ps: 1, rate_hz: 1.0 }],
+        delays_ps: vec![(1, 0)],
+        window_ps: Some(1000),
+        coincidences: vec![row.clone()],
+        scans: vec![ScanResult { a: 1, b: 2, rel_delay_ps: 0, span_ps: 10, bin_ps: 10, counts: vec![1, 2], peak: Some(peak) }],
+        sweeps: vec![SweepTable { a: 1, b: 2, rel_delay_ps: 0, rows: vec![row], recommended_window_ps: 1000, criterion: "max-net-significance".into() }],
+    }
+}
+
+/// Every group, attribute and dataset of `doc`, in document order.
+pub fn layout_entries(doc: &Document) -> Vec<LayoutEntry> {
+    let mut out = Vec::new();
+    walk_group(&doc.root, "/", &mut out);
+    out
+}
+
+fn entry(kind: EntryKind, path: String, dtype: &str) -> LayoutEntry {
+    LayoutEntry { kind, path, dtype: dtype.into(), unit: String::new(), rows: String::new() }
+}
+
+fn push_attrs(path: &str, attrs: &[(String, AttrValue)], out: &mut Vec<LayoutEntry>) {
+    out.extend(attrs.iter().map(|(k, v)| entry(EntryKind::Attribute, format!("{path}@{k}"), v.dtype_name())));
+}
+
+fn walk_group(g: &Group, path: &str, out: &mut Vec<LayoutEntry>) {
+    out.push(entry(EntryKind::Group, path.to_string(), ""));
+    push_attrs(path, &g.attrs, out);
+    for t in &g.tables {
+        let tpath = child(path, &t.name);
+        out.push(entry(EntryKind::Group, tpath.clone(), ""));
+        push_attrs(&tpath, &t.attrs, out);
+        for c in &t.columns {
+            let mut e = entry(EntryKind::Dataset, child(&tpath, &c.name), c.data.dtype_name());
+            e.unit = c.unit.clone();
+            e.rows = rows_meaning(&tpath, &c.name).into();
+            out.push(e);
+        }
+    }
+    for sub in &g.groups {
+        walk_group(sub, &child(path, &sub.name), out);
+    }
+}
+
+fn child(path: &str, name: &str) -> String {
+    if path.ends_with('/') {
+        format!("{path}{name}")
+    } else {
+        format!("{path}/{name}")
+    }
+}
+
+/// What one element of a dataset is, by where the table sits.
+fn rows_meaning(table_path: &str, column: &str) -> &'static str {
+    let table = table_path.rsplit('/').next().unwrap_or("");
+    match (table, column) {
+        _ if table_path.contains("/scans/") && column == "bin_edges_ps" => "histogram bins + 1",
+        _ if table_path.contains("/scans/") => "histogram bins",
+        _ if table_path.contains("/sweeps/") => "windows swept",
+        ("inputs", _) => "input files",
+        ("singles", _) | ("delays", _) => "channels",
+        ("coincidences", _) => "channel pairs",
+        ("off_peak_windows", _) => "channel pairs × off-peak windows",
+        _ => "rows",
+    }
+}
+
+/// docs/hdf5-layout.md: every group, attribute and dataset with dtype, shape and unit.
+pub fn describe_layout() -> String {
+    let entries = layout_entries(&sample_document());
+    let mut md = String::from(LAYOUT_PREAMBLE.replace("{LAYOUT_VERSION}", &LAYOUT_VERSION.to_string()));
+    md.push_str("\n## Groups and their attributes\n\n| group | attribute | type |\n|---|---|---|\n");
+    let mut current = String::new();
+    for e in &entries {
+        match e.kind {
+            EntryKind::Group => {
+                current = e.path.clone();
+                md.push_str(&format!("| `{}` | | |\n", e.path));
+            }
+            EntryKind::Attribute => {
+                let name = e.path.strip_prefix(&format!("{current}@")).unwrap_or(&e.path);
+                md.push_str(&format!("| | `{name}` | {} |\n", e.dtype));
+            }
+            EntryKind::Dataset => {}
+        }
+    }
+    md.push_str("\n## Datasets (each 1-D, with a string attribute `units`)\n\n| dataset | type | shape | units |\n|---|---|---|---|\n");
+    for e in entries.iter().filter(|e| e.kind == EntryKind::Dataset) {
+        md.push_str(&format!("| `{}` | {} | ({}) | {} |\n", e.path, e.dtype, e.rows, unit_text(&e.unit)));
+    }
+    md
+}
+
+fn unit_text(unit: &str) -> String {
+    if unit.is_empty() {
+        "`\"\"` (label)".into()
+    } else {
+        format!("`{unit}`")
+    }
+}
+
+const LAYOUT_PREAMBLE: &str = "# Layout of tagsieve output files
+
+<!-- Generated by tagsieve::output::layout::describe_layout(); do not edit by hand.
+     `TAGSIEVE_BLESS=1 cargo test --test output_layout` rewrites it; the test fails when it drifts. -->
+
+Layout version {LAYOUT_VERSION} (root attribute `layout_version`).
+
+- A **table** is a group holding one 1-D dataset per column, all of one length except a
+  histogram's `bin_edges_ps` (one more than `counts`). Every dataset has a string attribute
+  `units`: `ps`, `s`, `Hz`, `counts`, `bytes`, `1` (dimensionless) or `\"\"` (a label or index).
+- Types: `u64`/`i64` little-endian integers, `f64` IEEE doubles, `string` variable-length UTF-8.
+  Times inside the engine are integer picoseconds; only derived quantities are floats.
+- Datasets longer than 4096 elements are chunked (65536 elements), shuffled and
+  deflate-compressed (level 4); shorter ones are contiguous.
+- Placeholders: `{label}` is a block label, `{a}-{b}` a channel pair (e.g. `1-2`),
+  `param.{key}` one root attribute per parameter of the run. Groups and attributes appear in
+  creation order (tracked in the file).
+- A scan whose peak fit failed has `peak_found = 0` and no `peak_*` attributes.
+- Coincidence rule: Δ = (b − d_B) − (a − d_A) in integer ps; a pair counts when 2·|Δ| ≤ w.
+  `rel_delay_ps` is d_B − d_A.
+- Provenance: the root attributes name the tool, version, full command line and UTC creation
+  time; `/provenance/inputs` lists every input file with its size and XXH3-64 checksum.
+- Other stages add groups beside `/blocks` (for example `/chsh`); they are documented with
+  the stage that writes them.
+- CSV output holds the same tree: `# group /path` and `# table /path` comment lines,
+  attributes as `# key = value`, a header of `name [unit]` cells. JSON output nests
+  `{\"attrs\", \"tables\", \"groups\"}` objects; a table is `{\"attrs\", \"columns\"}` and a column
+  `{\"unit\", \"dtype\", \"data\"}`; NaN and infinities become `null`.
+";
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn every_column_has_a_known_unit_and_equal_lengths() {
+        let doc = sample_document();
+        // Units of the trade (common practice, no source) plus "" for labels.
+        let known = ["ps", "s", "Hz", "counts", "1", "bytes", ""];
+        for e in layout_entries(&doc).iter().filter(|e| e.kind == EntryKind::Dataset) {
+            assert!(known.contains(&e.unit.as_str()), "{} has unit {:?}", e.path, e.unit);
+        }
+        let blocks = doc.root.group("blocks").unwrap();
+        let block = &blocks.groups[0];
+        for t in &block.tables {
+            let lens: Vec<usize> = t.columns.iter().map(|c| c.data.len()).collect();
+            assert!(lens.windows(2).all(|w| w[0] == w[1]), "{}: {lens:?}", t.name);
+        }
+        let scan = &block.group("scans").unwrap().tables[0];
+        assert_eq!(scan.column("bin_edges_ps").unwrap().data.len(), scan.column("counts").unwrap().data.len() + 1);
+    }
+
+    #[test]
+    fn live_time_is_converted_from_ps_to_seconds() {
+        let mut b = sample_block();
+        b.singles[0].live_time_ps = 2_500_000_000_000; // 2.5 s
+        let t = singles_table(&b.singles);
+        assert_eq!(t.column("live_time_s").unwrap().data, ColumnData::F64(vec![2.5]));
+    }
+
+    #[test]
+    fn off_peak_rows_flatten_every_offset() {
+        let mut b = sample_block();
+        b.coincidences[0].acc_offsets_ps = vec![-200, 200, 400];
+        b.coincidences[0].acc_offset_counts = vec![3, 5, 7];
+        let t = off_peak_table(&b.coincidences);
+        assert_eq!(t.column("counts").unwrap().data, ColumnData::U64(vec![3, 5, 7]));
+        assert_eq!(t.column("offset_ps").unwrap().data, ColumnData::I64(vec![-200, 200, 400]));
+    }
+}

@@ -10,7 +10,7 @@ pub mod layout;
 pub mod plot;
 pub mod provenance;
 
-use crate::Result;
+use crate::{Error, Result};
 use std::path::Path;
 
 /// One column of a table.
@@ -44,11 +44,37 @@ pub struct Column {
     pub data: ColumnData,
 }
 
-/// Column datasets of equal length, stored under one group named `name`.
+/// Column datasets, stored under one group named `name`. Columns are of equal length
+/// except where the layout says otherwise (histogram `bin_edges_ps`: one more than `counts`).
 #[derive(Debug, Clone, PartialEq, Default)]
 pub struct Table {
     pub name: String,
     pub columns: Vec<Column>,
+    /// Attributes of the table's group (e.g. a fitted peak beside its histogram).
+    pub attrs: Vec<(String, AttrValue)>,
+}
+
+impl Table {
+    pub fn new(name: impl Into<String>) -> Self {
+        Table { name: name.into(), ..Default::default() }
+    }
+    /// Append a column (builder style).
+    pub fn col(mut self, name: &str, unit: &str, data: ColumnData) -> Self {
+        self.columns.push(Column { name: name.into(), unit: unit.into(), data });
+        self
+    }
+    /// Append an attribute (builder style).
+    pub fn attr(mut self, key: &str, value: AttrValue) -> Self {
+        self.attrs.push((key.into(), value));
+        self
+    }
+    pub fn column(&self, name: &str) -> Option<&Column> {
+        self.columns.iter().find(|c| c.name == name)
+    }
+    /// Length of the longest column.
+    pub fn rows(&self) -> usize {
+        self.columns.iter().map(|c| c.data.len()).max().unwrap_or(0)
+    }
 }
 
 /// Attribute value (HDF5 attribute, CSV comment, JSON field).
@@ -69,6 +95,54 @@ pub struct Group {
     pub groups: Vec<Group>,
 }
 
+impl Group {
+    pub fn new(name: impl Into<String>) -> Self {
+        Group { name: name.into(), ..Default::default() }
+    }
+    pub fn attr(&self, key: &str) -> Option<&AttrValue> {
+        self.attrs.iter().find(|(k, _)| k == key).map(|(_, v)| v)
+    }
+    pub fn group(&self, name: &str) -> Option<&Group> {
+        self.groups.iter().find(|g| g.name == name)
+    }
+    pub fn table(&self, name: &str) -> Option<&Table> {
+        self.tables.iter().find(|t| t.name == name)
+    }
+}
+
+impl AttrValue {
+    /// The value as text (CSV comments, Markdown).
+    pub fn to_text(&self) -> String {
+        match self {
+            AttrValue::Str(s) => s.clone(),
+            AttrValue::U64(v) => v.to_string(),
+            AttrValue::I64(v) => v.to_string(),
+            AttrValue::F64(v) => v.to_string(),
+        }
+    }
+    /// Type name as documented in docs/hdf5-layout.md.
+    pub fn dtype_name(&self) -> &'static str {
+        match self {
+            AttrValue::Str(_) => "string",
+            AttrValue::U64(_) => "u64",
+            AttrValue::I64(_) => "i64",
+            AttrValue::F64(_) => "f64",
+        }
+    }
+}
+
+impl ColumnData {
+    /// Type name as documented in docs/hdf5-layout.md.
+    pub fn dtype_name(&self) -> &'static str {
+        match self {
+            ColumnData::U64(_) => "u64",
+            ColumnData::I64(_) => "i64",
+            ColumnData::F64(_) => "f64",
+            ColumnData::Str(_) => "string",
+        }
+    }
+}
+
 /// A whole output file. The root group's attributes carry provenance.
 #[derive(Debug, Clone, PartialEq, Default)]
 pub struct Document {
@@ -81,4 +155,79 @@ pub trait Writer {
     fn write(&self, doc: &Document, dest: &Path) -> Result<()>;
     /// Whether the format can stream to stdout (`-o -`).
     fn can_stdout(&self) -> bool;
+}
+
+/// An output format, chosen with `--format`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum Format {
+    /// HDF5 file (groups, one dataset per column, `units` attributes).
+    Hdf5,
+    /// CSV sections, one per table, attributes as `#` comment lines.
+    Csv,
+    /// One JSON object: nested groups, columns as arrays with units.
+    Json,
+}
+
+impl Format {
+    /// The writer for this format.
+    pub fn writer(self) -> Box<dyn Writer> {
+        match self {
+            Format::Hdf5 => Box::new(hdf5::Hdf5Writer),
+            Format::Csv => Box::new(csv::CsvWriter),
+            Format::Json => Box::new(json::JsonWriter),
+        }
+    }
+
+    /// Guess the format from a file extension (`.h5`/`.hdf5`, `.csv`, `.json`).
+    pub fn from_extension(path: &Path) -> Option<Format> {
+        let ext = path.extension()?.to_str()?.to_ascii_lowercase();
+        match ext.as_str() {
+            "h5" | "hdf5" => Some(Format::Hdf5),
+            "csv" => Some(Format::Csv),
+            "json" => Some(Format::Json),
+            _ => None,
+        }
+    }
+}
+
+/// Write `doc` to `dest` (None = stdout) in `format`. Files are written atomically
+/// (temporary beside the target, renamed when complete); an existing file is replaced
+/// only with `force` (else [`Error::OutputExists`]). HDF5 cannot go to stdout.
+pub fn write_document(doc: &Document, dest: Option<&Path>, format: Format, force: bool) -> Result<()> {
+    match dest {
+        Some(path) => write_with(doc, path, format.writer().as_ref(), force),
+        None => write_stdout(doc, format),
+    }
+}
+
+fn write_stdout(doc: &Document, format: Format) -> Result<()> {
+    let stdout = std::io::stdout();
+    let mut out = std::io::BufWriter::new(stdout.lock());
+    let r = match format {
+        Format::Csv => csv::write_to(doc, &mut out),
+        Format::Json => json::write_to(doc, &mut out),
+        Format::Hdf5 => {
+            return Err(Error::Usage("HDF5 output cannot go to stdout (-o -); give a file name or --format csv|json".into()))
+        }
+    };
+    r.and_then(|()| std::io::Write::flush(&mut out).map_err(|e| Error::io("<stdout>", e)))
+}
+
+/// Write `doc` to `path` through `writer`, atomically: on any writer error neither the
+/// final file nor the temporary remains, and errors name the final path.
+pub fn write_with(doc: &Document, path: &Path, writer: &dyn Writer, force: bool) -> Result<()> {
+    let out = atomic::AtomicOutput::prepare(path, force)?;
+    match writer.write(doc, out.temp_path()) {
+        Ok(()) => out.commit(),
+        Err(e) => Err(rename_error_path(e, out.temp_path(), path)),
+    }
+}
+
+/// Writers see the temporary path; the user should see the name they asked for.
+fn rename_error_path(e: Error, temp: &Path, path: &Path) -> Error {
+    match e {
+        Error::Output { path: p, message } if p == temp => Error::Output { path: path.to_path_buf(), message },
+        Error::Io { path: p, source } if p == temp => Error::Io { path: path.to_path_buf(), source },
+        other => other,
+    }
 }
