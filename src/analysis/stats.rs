@@ -38,8 +38,9 @@ pub fn garwood_interval(n: u64, confidence: f64) -> Option<Interval> {
 }
 
 /// Quantile of the unit-rate gamma distribution with `shape` > 0 at 0 < p < 1:
-/// statrs' estimate, then safeguarded Newton steps on its CDF until the bracket
-/// closes to ~1e-14 relative.
+/// statrs' estimate, then safeguarded Newton steps on its CDF (bisection where Newton
+/// leaves the bracket). Agrees with SciPy to ~1e-10 relative up to shape 10⁶ (tested),
+/// limited by statrs' incomplete-gamma accuracy.
 pub fn gamma_quantile(shape: f64, p: f64) -> f64 {
     let g = Gamma::new(shape, 1.0).expect("shape > 0");
     let (mut lo, mut hi) = (0.0_f64, shape.max(1.0));
@@ -47,13 +48,14 @@ pub fn gamma_quantile(shape: f64, p: f64) -> f64 {
         lo = hi;
         hi *= 2.0;
     }
-    let mut x = g.inverse_cdf(p).clamp(lo, hi);
+    let guess = g.inverse_cdf(p);
+    let mut x = if guess.is_finite() { guess.clamp(lo, hi) } else { 0.5 * (lo + hi) };
     for _ in 0..200 {
         let f = g.cdf(x) - p;
         if f > 0.0 { hi = x } else { lo = x }
         let pdf = g.pdf(x);
-        let newton = if pdf > 0.0 { x - f / pdf } else { f64::NAN };
-        if (newton - x).abs() <= 1e-15 * x || hi - lo <= 1e-15 * hi {
+        let newton = if pdf.is_finite() && pdf > 0.0 { x - f / pdf } else { f64::NAN };
+        if (newton - x).abs() <= 1e-15 * x || hi - lo <= 1e-15 * hi || f == 0.0 {
             return if newton >= lo && newton <= hi { newton } else { x };
         }
         // Fall back to bisection when Newton leaves the bracket.
