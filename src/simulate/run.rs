@@ -57,7 +57,7 @@ pub struct RunSummary {
 impl RunConfig {
     fn duration_ps(&self) -> Result<u64> {
         let ps = self.duration_s * 1e12;
-        if !(ps.is_finite() && ps >= 1.0 && ps < 1.8e19) {
+        if !(1.0..1.8e19).contains(&ps) {
             return Err(Error::Usage(format!("simulate: duration_s = {}, expected a positive number of seconds", self.duration_s)));
         }
         Ok(ps.round() as u64)
