@@ -90,12 +90,13 @@ fn json_summary_counts_match_the_array_files() {
 #[test]
 fn one_per_side_writes_four_blocks_per_pair_with_plus_detectors_only() {
     let d = tempfile::tempdir().unwrap();
-    let out = simulate(d.path(), &["--setup", "one-per-side", "--omit-delays"]);
+    let out = simulate(d.path(), &["--setup", "one-per-side", "--omit-delays", "--window-ps", "300"]);
     assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
     let m = Manifest::load(&d.path().join("run.toml")).unwrap();
     assert_eq!((m.setup, m.blocks.len(), m.setting_pairs().len()), (Setup::OnePerSide, 16, 4));
     assert_eq!(m.channels.iter().map(|c| c.number).collect::<Vec<_>>(), [1, 3]);
     assert!(m.channel_delays_ps().is_empty());
+    assert_eq!(m.window_ps, Some(300));
     assert_eq!(listed_files(&m), files_in(d.path()));
     assert_blocks_read_back(&m);
 }
