@@ -135,3 +135,17 @@ fn bad_detector_override_is_a_usage_error() {
     }
     assert!(files_in(d.path()).is_empty(), "nothing written on a usage error");
 }
+
+/// `--threads` changes nothing in the output (arrays: no time stamp in the files).
+#[test]
+fn thread_count_does_not_change_the_files() {
+    let (d1, d2) = (tempfile::tempdir().unwrap(), tempfile::tempdir().unwrap());
+    assert!(simulate(d1.path(), &["--format", "arrays", "--threads", "1", "--pair-rate-hz", "3e6"]).status.success());
+    assert!(simulate(d2.path(), &["--format", "arrays", "--threads", "2", "--pair-rate-hz", "3e6"]).status.success());
+    let files = files_in(d1.path());
+    assert_eq!(files.len(), 16);
+    for f in files {
+        let other = d2.path().join(f.file_name().unwrap());
+        assert_eq!(std::fs::read(&f).unwrap(), std::fs::read(other).unwrap(), "{}", f.display());
+    }
+}
