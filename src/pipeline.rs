@@ -283,3 +283,38 @@ pub fn visibility_series(m: &Manifest, blocks: &[BlockTables]) -> Result<Vec<(St
         })
         .collect())
 }
+
+/// CHSH on the standard setting pairs (a,b), (a,b'), (a',b), (a',b') when all four are
+/// present; `None` when the run has no CHSH settings (e.g. a visibility series).
+pub fn chsh_report(settings: &[SettingCounts]) -> Option<Result<crate::analysis::chsh::ChshReport>> {
+    let chosen: Vec<SettingCounts> = settings
+        .iter()
+        .filter(|s| crate::analysis::chsh::PAIR_ORDER.iter().any(|(a, b)| s.label_a == *a && s.label_b == *b))
+        .cloned()
+        .collect();
+    (chosen.len() == 4).then(|| crate::analysis::chsh::evaluate(&chosen))
+}
+
+/// The three-setting form for the first angle triple (x, y, z) whose blocks (x,y), (x,z)
+/// and (y,z) all exist, trying Alice angles for x and y and Bob angles for y and z.
+pub fn bell3_search(
+    settings: &[SettingCounts],
+    convention: crate::analysis::bell3::Convention,
+) -> Option<([f64; 3], crate::analysis::bell3::Bell3Result)> {
+    let mut alice: Vec<f64> = settings.iter().map(|s| s.angle_a_deg).collect();
+    let mut bob: Vec<f64> = settings.iter().map(|s| s.angle_b_deg).collect();
+    for v in [&mut alice, &mut bob] {
+        v.sort_by(f64::total_cmp);
+        v.dedup();
+    }
+    for &x in &alice {
+        for &y in alice.iter().filter(|&&y| y != x) {
+            for &z in bob.iter().filter(|&&z| z != y && z != x) {
+                if let Ok(r) = crate::analysis::bell3::evaluate_blocks(settings, [x, y, z], convention, false) {
+                    return Some(([x, y, z], r));
+                }
+            }
+        }
+    }
+    None
+}
