@@ -31,7 +31,7 @@ pub struct Global {
 
 impl Global {
     pub fn read_options(&self) -> tagsieve::read::ReadOptions {
-        tagsieve::read::ReadOptions { mmap: !self.no_mmap }
+        tagsieve::read::ReadOptions { mmap: !self.no_mmap, ..Default::default() }
     }
 }
 

@@ -1,4 +1,19 @@
-//! The coincidence engine: one integer rule, delay histograms, window sweeps, accidentals;
-//! parallel over time slices and streaming over chunks, bit-identical for any thread count.
+//! The coincidence engine: one integer rule ([`rule`]), delay histograms ([`scan`]),
+//! window sweeps ([`sweep`]), accidentals ([`accidentals`]); parallel over fixed chunks of
+//! A events ([`parallel`]) and bit-identical for any thread count.
 
+pub mod accidentals;
+pub mod count;
+pub mod delays;
+pub mod kernels;
+pub mod parallel;
+pub mod rule;
+pub mod scan;
+pub mod stream;
+pub mod sweep;
 pub mod tables;
+
+pub use count::{count_block, CountConfig};
+pub use delays::Delays;
+pub use scan::{scan_block, ScanConfig};
+pub use sweep::{sweep_block, Criterion};

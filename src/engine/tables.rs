@@ -3,7 +3,7 @@
 use crate::Channel;
 
 /// Per-channel singles of one block.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct SinglesRow {
     pub channel: Channel,
     pub name: String,
@@ -16,7 +16,7 @@ pub struct SinglesRow {
 }
 
 /// The block's acquisition interval: from the earliest to the latest tag of any channel.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
 pub struct BlockSpan {
     pub start_ps: u64,
     /// Exclusive end: latest tag + 1 ps.
@@ -30,14 +30,14 @@ impl BlockSpan {
 }
 
 /// An accidental-coincidence estimate with its one-standard-deviation uncertainty.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
 pub struct Estimate {
     pub value: f64,
     pub sigma: f64,
 }
 
 /// Coincidences of one channel pair at one window.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct CoincidenceRow {
     pub a: Channel,
     pub b: Channel,
@@ -64,7 +64,7 @@ pub struct CoincidenceRow {
 }
 
 /// The fitted peak of a delay histogram.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
 pub struct PeakFit {
     /// Δ at the peak centre (centroid of background-subtracted bins near the maximum), ps.
     pub delay_ps: f64,
@@ -79,7 +79,7 @@ pub struct PeakFit {
 }
 
 /// Histogram of Δ = (b − d_B) − (a − d_A) for one pair.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct ScanResult {
     pub a: Channel,
     pub b: Channel,
@@ -99,7 +99,7 @@ impl ScanResult {
 }
 
 /// One pair's window sweep.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct SweepTable {
     pub a: Channel,
     pub b: Channel,
@@ -111,7 +111,7 @@ pub struct SweepTable {
 }
 
 /// Everything computed for one block (one setting pair or one input set).
-#[derive(Debug, Clone, PartialEq, Default)]
+#[derive(Debug, Clone, PartialEq, Default, serde::Serialize)]
 pub struct BlockTables {
     pub label: String,
     pub span: Option<BlockSpan>,

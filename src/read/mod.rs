@@ -2,28 +2,41 @@
 //! buffered fallback ([`mapping`]), validated with errors that name the file, the record
 //! or byte offset, what was found and what was expected.
 //!
-//! Formats: per-channel u64 arrays (`CH=PATH`), interleaved fixed-size records of any
-//! layout ([`layout`]), and our own columnar container ([`container`]).
+//! Formats: per-channel u64 arrays (`CH=PATH`, [`channel_array`]), interleaved fixed-size
+//! records of any layout ([`records`], [`layout`]), and our own columnar container
+//! ([`container`]). Adding a format: one file implementing [`TagSource`] and one line in
+//! [`open_inputs`].
 
 pub mod channel_array;
+pub mod check;
 pub mod container;
+pub mod convert;
 pub mod layout;
 pub mod mapping;
 pub mod records;
+pub mod sections;
 
-use crate::{ChannelTags, Result};
+use crate::{Channel, ChannelTags, Error, Result};
+use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
+
+/// Largest timestamp accepted (exclusive): 2^62 ps ≈ 53.4 days. Keeps every difference of
+/// two timestamps plus a delay inside i64 with room to spare.
+pub const MAX_PS: u64 = 1 << 62;
 
 /// How inputs are read.
 #[derive(Debug, Clone, Copy)]
 pub struct ReadOptions {
     /// Map files into memory (default). `false` reads them with buffered I/O instead.
     pub mmap: bool,
+    /// Lenient order check (for `inspect`): timestamps going backwards are handed on as
+    /// they are instead of failing, so the caller can count them. Default `false` (strict).
+    pub lenient_order: bool,
 }
 
 impl Default for ReadOptions {
     fn default() -> Self {
-        ReadOptions { mmap: true }
+        ReadOptions { mmap: true, lenient_order: false }
     }
 }
 
@@ -48,28 +61,103 @@ pub trait TagSource: Send + Sync {
     fn chunks(&self, events_per_chunk: usize) -> Result<Box<dyn Iterator<Item = Result<Vec<ChannelTags<'static>>>> + Send + '_>>;
     /// Re-check the file's size after a pass; an error if it changed underneath.
     fn check_unchanged(&self) -> Result<()>;
+    /// Number of events in the file, known from its size or channel table.
+    fn event_count(&self) -> u64;
+    /// Channel numbers known without reading the data (arrays, container); `None` for
+    /// interleaved records, whose channels appear only while demultiplexing.
+    fn declared_channels(&self) -> Option<Vec<Channel>>;
 }
 
-/// Open the INPUT arguments of one block: `CH=PATH` for per-channel arrays, a container
-/// file (recognised by its magic bytes), or an interleaved-record file (needs `layout`).
-/// Channel numbers must be unique across the whole set.
+/// Open the INPUT arguments of one block: `CH=PATH` (or `CH:NAME=PATH`) for per-channel
+/// arrays, a container file (recognised by its magic bytes), or an interleaved-record file
+/// (needs `layout`). Channel numbers must be unique across the whole set.
 pub fn open_inputs(
     args: &[String],
     layout: Option<&layout::RecordLayout>,
     opts: ReadOptions,
 ) -> Result<Vec<Box<dyn TagSource>>> {
-    let _ = (args, layout, opts);
-    todo!("read::open_inputs")
+    let mut sources: Vec<Box<dyn TagSource>> = Vec::with_capacity(args.len());
+    let mut owner: BTreeMap<Channel, PathBuf> = BTreeMap::new();
+    for arg in args {
+        let src = open_one(arg, layout, opts)?;
+        for ch in src.declared_channels().unwrap_or_default() {
+            claim_channel(&mut owner, ch, &src.file().path)?;
+        }
+        sources.push(src);
+    }
+    Ok(sources)
+}
+
+/// One INPUT argument → its reader (the one line per format lives here).
+fn open_one(arg: &str, layout: Option<&layout::RecordLayout>, opts: ReadOptions) -> Result<Box<dyn TagSource>> {
+    if let Some((channel, name, path)) = channel_array::parse_arg(arg)? {
+        return Ok(Box::new(channel_array::ChannelArray::open(channel, &name, &path, opts)?));
+    }
+    let path = Path::new(arg);
+    let map = mapping::Mapping::open(path, opts)?;
+    if container::has_magic(&map)? {
+        return Ok(Box::new(container::Container::from_mapping(map, opts)?));
+    }
+    match layout {
+        Some(l) => Ok(Box::new(records::Records::from_mapping(map, l.clone(), opts)?)),
+        None => Err(Error::Usage(format!(
+            "{arg}: not a container file (no {} magic bytes) and no --layout given; \
+             give per-channel arrays as CH=PATH, or describe the records with --layout FILE|SPEC",
+            container::EXTENSION
+        ))),
+    }
+}
+
+fn claim_channel(owner: &mut BTreeMap<Channel, PathBuf>, ch: Channel, path: &Path) -> Result<()> {
+    if let Some(first) = owner.get(&ch) {
+        return Err(Error::Usage(format!(
+            "channel {ch} appears twice: in {} and in {}; each channel may come from one input only",
+            first.display(),
+            path.display()
+        )));
+    }
+    owner.insert(ch, path.to_path_buf());
+    Ok(())
 }
 
 /// Convenience: all channels of a set of opened inputs, checking channel numbers are unique.
 pub fn all_channels<'a>(sources: &'a [Box<dyn TagSource>]) -> Result<Vec<ChannelTags<'a>>> {
-    let _ = sources;
-    todo!("read::all_channels")
+    let mut owner = BTreeMap::new();
+    let mut out = Vec::new();
+    for s in sources {
+        let path = s.file().path;
+        for c in s.channels()? {
+            claim_channel(&mut owner, c.channel, &path)?;
+            out.push(c);
+        }
+        s.check_unchanged()?;
+    }
+    Ok(out)
 }
 
 /// Whether `path` starts with the container's magic bytes.
 pub fn is_container(path: &Path) -> bool {
-    let _ = path;
-    todo!("read::is_container")
+    mapping::Mapping::open_buffered(path).ok().is_some_and(|m| container::has_magic(&m).unwrap_or(false))
+}
+
+/// "record 12 (byte offset 96)": the location text every reader uses.
+pub fn record_location(index: u64, byte_offset: u64) -> String {
+    format!("record {index} (byte offset {byte_offset})")
+}
+
+/// Whether the values are non-decreasing with at least two distinct ones (used to suggest
+/// the other byte order when the data as read goes backwards).
+pub(crate) fn looks_monotone(values: impl Iterator<Item = u64>) -> bool {
+    let mut prev: Option<u64> = None;
+    let mut rising = false;
+    for v in values {
+        if let Some(p) = prev {
+            if v < p {
+                return false;
+            }
+            rising |= v > p;
+        }
+        prev = Some(v);
+    }
+    rising
 }

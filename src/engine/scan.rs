@@ -1,0 +1,165 @@
+//! Delay scan: the histogram of Δ per pair, its peak (delay estimate with σ, FWHM, height,
+//! background), and delays proposed for every channel relative to a reference.
+
+use super::count::{channel, finish_stream, resolve_pairs, PairOutcome};
+use super::delays::Delays;
+use super::rule;
+use super::stream::{ChannelSummary, PairResult, PairTask, Streamer};
+use super::tables::{BlockSpan, PeakFit, ScanResult};
+use crate::{Channel, ChannelTags, Error, Result};
+
+/// Histogram range and resolution.
+#[derive(Debug, Clone)]
+pub struct ScanConfig {
+    pub pairs: Vec<(Channel, Channel)>,
+    pub delays: Delays,
+    /// Δ from −span to +span, ps.
+    pub span_ps: u64,
+    pub bin_ps: u64,
+}
+
+/// FWHM of a Gaussian in units of σ: 2√(2 ln 2).
+pub const FWHM_PER_SIGMA: f64 = 2.354_820_045_030_949;
+
+/// Scan every pair of a block (whole-file path).
+pub fn scan_block(tags: &[ChannelTags<'_>], cfg: &ScanConfig) -> Result<Vec<ScanResult>> {
+    let task = check_scan(cfg)?;
+    let pairs = resolve_pairs(tags, &cfg.pairs)?;
+    pairs
+        .iter()
+        .map(|&(ca, cb)| {
+            let delta = cfg.delays.relative(ca, cb);
+            rule::check_shift(delta, "relative delay")?;
+            Ok(scan_result(&((ca, cb), delta, task.run_whole(channel(tags, ca)?, channel(tags, cb)?, delta)), cfg))
+        })
+        .collect()
+}
+
+/// Scan from chunks in time order (bounded memory); equal to [`scan_block`].
+pub fn scan_stream<'a, I>(chunks: I, cfg: &ScanConfig) -> Result<(BlockSpan, Vec<ChannelSummary>, Vec<ScanResult>)>
+where
+    I: Iterator<Item = Result<Vec<ChannelTags<'a>>>>,
+{
+    let mut s = Streamer::new(check_scan(cfg)?, cfg.pairs.clone(), cfg.delays.clone(), u64::MAX);
+    for chunk in chunks {
+        s.push(&chunk?)?;
+    }
+    let (span, channels, results) = finish_stream(s, "scan", &cfg.pairs)?;
+    Ok((span, channels, results.iter().map(|r| scan_result(r, cfg)).collect()))
+}
+
+fn check_scan(cfg: &ScanConfig) -> Result<PairTask> {
+    if cfg.span_ps == 0 || cfg.bin_ps == 0 {
+        return Err(Error::Usage(format!("scan: span {} ps and bin {} ps must both be > 0", cfg.span_ps, cfg.bin_ps)));
+    }
+    rule::check_shift(cfg.span_ps as i64, "--span-ps")?;
+    let nbins = (2 * cfg.span_ps).div_ceil(cfg.bin_ps);
+    if nbins > 50_000_000 {
+        return Err(Error::Usage(format!("scan: {nbins} bins is too many; widen --bin-ps or narrow --span-ps")));
+    }
+    Ok(PairTask::Histogram { span_ps: cfg.span_ps, bin_ps: cfg.bin_ps })
+}
+
+fn scan_result(((ca, cb), delta, r): &PairOutcome, cfg: &ScanConfig) -> ScanResult {
+    let PairResult::Histogram(counts) = r else { unreachable!("histogram task gives a histogram") };
+    let peak = fit_peak(counts, cfg.span_ps, cfg.bin_ps);
+    ScanResult { a: *ca, b: *cb, rel_delay_ps: *delta, span_ps: cfg.span_ps, bin_ps: cfg.bin_ps, counts: counts.clone(), peak }
+}
+
+/// Centre of bin i's integer support: Δ from −span + i·bin to −span + (i+1)·bin − 1.
+fn bin_centre(i: usize, span_ps: u64, bin_ps: u64) -> f64 {
+    -(span_ps as f64) + (i as f64) * bin_ps as f64 + (bin_ps as f64 - 1.0) / 2.0
+}
+
+/// Find the coincidence peak.
+///
+/// Background: the median bin (robust while the peak fills under half the bins). Peak:
+/// the highest bin, accepted when it stands ≥ 5 σ (Poisson) and ≥ 10 counts above the
+/// background. FWHM: linear interpolation of the half-height crossings. Delay: centroid of
+/// background-subtracted bins within ±1.5 FWHM (at least ±2 bins) of the maximum; its σ is
+/// max(FWHM/2.355, bin/√12)/√(net counts).
+pub fn fit_peak(counts: &[u64], span_ps: u64, bin_ps: u64) -> Option<PeakFit> {
+    if counts.len() < 3 {
+        return None;
+    }
+    let mut sorted: Vec<u64> = counts.to_vec();
+    sorted.sort_unstable();
+    let background = sorted[sorted.len() / 2] as f64;
+    let (imax, &cmax) = counts.iter().enumerate().max_by_key(|&(i, &c)| (c, std::cmp::Reverse(i)))?;
+    let height = cmax as f64 - background;
+    if height < 10.0 || height < 5.0 * background.max(1.0).sqrt() {
+        return None;
+    }
+    let half = background + height / 2.0;
+    let x = |i: usize| bin_centre(i, span_ps, bin_ps);
+    let level = |i: usize| counts[i] as f64;
+    let mut l = imax;
+    while l > 0 && level(l - 1) > half {
+        l -= 1;
+    }
+    let left = if l == 0 { x(0) } else { x(l - 1) + (half - level(l - 1)) / (level(l) - level(l - 1)) * bin_ps as f64 };
+    let mut r = imax;
+    while r + 1 < counts.len() && level(r + 1) > half {
+        r += 1;
+    }
+    let right = if r + 1 == counts.len() { x(r) } else { x(r) + (level(r) - half) / (level(r) - level(r + 1)) * bin_ps as f64 };
+    let fwhm_ps = (right - left).max(0.0);
+    let reach = ((1.5 * fwhm_ps / bin_ps as f64).ceil() as usize).max(2);
+    let (lo, hi) = (imax.saturating_sub(reach), (imax + reach).min(counts.len() - 1));
+    let (mut sw, mut swx) = (0.0, 0.0);
+    for i in lo..=hi {
+        let w = level(i) - background;
+        sw += w;
+        swx += w * x(i);
+    }
+    if sw <= 0.0 {
+        return None;
+    }
+    let width_sigma = (fwhm_ps / FWHM_PER_SIGMA).max(bin_ps as f64 / 12f64.sqrt());
+    Some(PeakFit {
+        delay_ps: swx / sw,
+        delay_sigma_ps: width_sigma / sw.sqrt(),
+        fwhm_ps,
+        height,
+        background,
+        net_counts: sw,
+    })
+}
+
+/// Propose a delay for every channel relative to `reference` (whose delay becomes 0).
+///
+/// Each pair with a peak links two channels: d_B − d_A = (current δ) + (peak Δ). Starting
+/// from the reference, the link with the most net counts to a channel not yet placed is
+/// taken first (a maximum spanning tree), so a channel without a direct peak to the
+/// reference (the other output of the same analyzer) is placed through one that has.
+/// Returns the delays and the channels that no peak reaches.
+pub fn propose_delays(scans: &[ScanResult], reference: Channel) -> (Delays, Vec<Channel>) {
+    let mut placed = std::collections::BTreeMap::from([(reference, 0i64)]);
+    let mut channels: std::collections::BTreeSet<Channel> = scans.iter().flat_map(|s| [s.a, s.b]).collect();
+    channels.insert(reference);
+    loop {
+        let mut best: Option<(f64, Channel, i64)> = None;
+        for s in scans {
+            let Some(p) = s.peak else { continue };
+            let rel = s.rel_delay_ps as f64 + p.delay_ps; // measured d_B − d_A
+            let cand = match (placed.get(&s.a), placed.get(&s.b)) {
+                (Some(&da), None) => Some((s.b, da as f64 + rel)),
+                (None, Some(&db)) => Some((s.a, db as f64 - rel)),
+                _ => None,
+            };
+            if let Some((ch, d)) = cand {
+                if best.map_or(true, |(n, _, _)| p.net_counts > n) {
+                    best = Some((p.net_counts, ch, d.round() as i64));
+                }
+            }
+        }
+        match best {
+            Some((_, ch, d)) => {
+                placed.insert(ch, d);
+            }
+            None => break,
+        }
+    }
+    let unreached = channels.iter().copied().filter(|c| !placed.contains_key(c)).collect();
+    (Delays { by_channel: placed, reference: Some(reference) }, unreached)
+}

@@ -1,1 +1,0 @@
-//! The source model: a polarization-entangled pair source read by four detectors, deterministic per seed.
