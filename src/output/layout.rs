@@ -194,6 +194,8 @@ pub struct LayoutEntry {
     pub unit: String,
     /// Datasets only: what one element of the 1-D dataset is.
     pub rows: String,
+    /// What the value means (documentation only).
+    pub note: String,
 }
 
 /// A sample run with one block and one pair of each kind; names that vary per run are
@@ -256,7 +258,8 @@ pub fn layout_entries(doc: &Document) -> Vec<LayoutEntry> {
 }
 
 fn entry(kind: EntryKind, path: String, dtype: &str) -> LayoutEntry {
-    LayoutEntry { kind, path, dtype: dtype.into(), unit: String::new(), rows: String::new() }
+    let note = note_for(kind, &path).into();
+    LayoutEntry { kind, path, dtype: dtype.into(), unit: String::new(), rows: String::new(), note }
 }
 
 fn push_attrs(path: &str, attrs: &[(String, AttrValue)], out: &mut Vec<LayoutEntry>) {
@@ -305,28 +308,90 @@ fn rows_meaning(table_path: &str, column: &str) -> &'static str {
     }
 }
 
+/// The meaning of a group, attribute or column, by its name and where it sits.
+fn note_for(kind: EntryKind, path: &str) -> &'static str {
+    let (parent, name) = path.rsplit_once(['/', '@']).unwrap_or(("", path));
+    let in_scan = parent.contains("/scans/");
+    match name {
+        "" => "root: provenance attributes",
+        "provenance" => "where the data came from",
+        "inputs" => "every input file as read",
+        "blocks" => "one group per block (setting pair or input set)",
+        "{label}" => "one block",
+        "singles" => "per-channel singles of the block",
+        "delays" => "per-channel delay d applied before pairing",
+        "coincidences" if kind == EntryKind::Group => "one row per channel pair at the block's window",
+        "off_peak_windows" => "raw counts behind acc_measured",
+        "scans" => "delay histograms, one table per pair",
+        "sweeps" => "window sweeps, one table per pair",
+        "{a}-{b}" if in_scan || parent.ends_with("scans") => "histogram of Δ; fitted peak as attributes",
+        "{a}-{b}" => "one row per window swept",
+        "tool" | "tool_version" => "program and version that wrote the file",
+        "command_line" => "full command line, shell-quoted",
+        "created_utc" => "creation time, ISO 8601 UTC",
+        "param.{key}" => "one attribute per run parameter (type follows the value)",
+        "layout_version" => "version of this layout",
+        "checksum" => "checksum algorithm of the xxh3 column",
+        "path" => "input path as given",
+        "size_bytes" => "file size when read",
+        "xxh3" => "XXH3-64 of the file bytes (seed 0), 16 hex digits",
+        "label" => "block label",
+        "window_ps" => "coincidence window w: pairs with 2·abs(Δ) ≤ w count",
+        "span_start_ps" | "span_end_ps" => "acquisition span [start, end) over all channels",
+        "span_s" => "span length",
+        "channel" | "a" | "b" => "channel number",
+        "name" => "channel name",
+        "events" => "time tags in the block",
+        "first_ps" | "last_ps" => "first and last time tag",
+        "live_time_s" => "live time (the block span)",
+        "rate_hz" => "events / live time",
+        "delay_ps" => "delay d of the channel",
+        "rel_delay_ps" => "d_B − d_A",
+        "coincidences" => "pairs with 2·abs(Δ) ≤ w",
+        "heralded" => "A events with at least one partner",
+        "acc_analytic" | "acc_analytic_sigma" => "accidentals from singles rates, ±1σ",
+        "acc_measured" | "acc_measured_sigma" => "mean of the off-peak windows, ±1σ",
+        "net" | "net_sigma" => "coincidences − acc_analytic, ±1σ",
+        "car" => "coincidences / acc_analytic (NaN when 0)",
+        "acc_agreement_sigma" => "(acc_analytic − acc_measured) / combined σ",
+        "offset_ps" => "offset of the off-peak window from the peak",
+        "counts" if in_scan => "counts per bin",
+        "counts" => "pairs in the off-peak window",
+        "bin_edges_ps" => "bin i covers [edge i, edge i+1) of Δ",
+        "span_ps" | "bin_ps" => "histogram half-span and bin width",
+        "peak_found" => "1 when the peak fit succeeded",
+        "peak_delay_ps" | "peak_delay_sigma_ps" => "peak centre in Δ, ±1σ",
+        "peak_fwhm_ps" => "full width at half maximum",
+        "peak_height" | "peak_background" => "peak height and flat background, counts per bin",
+        "peak_net_counts" => "background-subtracted counts in the peak",
+        "recommended_window_ps" => "window chosen by the criterion",
+        "criterion" => "how the window was chosen",
+        _ => "",
+    }
+}
+
 /// docs/hdf5-layout.md: every group, attribute and dataset with dtype, shape and unit.
 pub fn describe_layout() -> String {
     let entries = layout_entries(&sample_document());
-    let mut md = String::from(LAYOUT_PREAMBLE.replace("{LAYOUT_VERSION}", &LAYOUT_VERSION.to_string()));
-    md.push_str("\n## Groups and their attributes\n\n| group | attribute | type |\n|---|---|---|\n");
+    let mut md = LAYOUT_PREAMBLE.replace("{LAYOUT_VERSION}", &LAYOUT_VERSION.to_string());
+    md.push_str("\n## Groups and their attributes\n\n| group | attribute | type | meaning |\n|---|---|---|---|\n");
     let mut current = String::new();
     for e in &entries {
         match e.kind {
             EntryKind::Group => {
                 current = e.path.clone();
-                md.push_str(&format!("| `{}` | | |\n", e.path));
+                md.push_str(&format!("| `{}` | | | {} |\n", e.path, e.note));
             }
             EntryKind::Attribute => {
                 let name = e.path.strip_prefix(&format!("{current}@")).unwrap_or(&e.path);
-                md.push_str(&format!("| | `{name}` | {} |\n", e.dtype));
+                md.push_str(&format!("| | `{name}` | {} | {} |\n", e.dtype, e.note));
             }
             EntryKind::Dataset => {}
         }
     }
-    md.push_str("\n## Datasets (each 1-D, with a string attribute `units`)\n\n| dataset | type | shape | units |\n|---|---|---|---|\n");
+    md.push_str("\n## Datasets (each 1-D, with a string attribute `units`)\n\n| dataset | type | shape | units | meaning |\n|---|---|---|---|---|\n");
     for e in entries.iter().filter(|e| e.kind == EntryKind::Dataset) {
-        md.push_str(&format!("| `{}` | {} | ({}) | {} |\n", e.path, e.dtype, e.rows, unit_text(&e.unit)));
+        md.push_str(&format!("| `{}` | {} | ({}) | {} | {} |\n", e.path, e.dtype, e.rows, unit_text(&e.unit), e.note));
     }
     md
 }
@@ -389,6 +454,15 @@ mod tests {
         }
         let scan = &block.group("scans").unwrap().tables[0];
         assert_eq!(scan.column("bin_edges_ps").unwrap().data.len(), scan.column("counts").unwrap().data.len() + 1);
+    }
+
+    #[test]
+    fn every_documented_entry_has_a_meaning() {
+        for e in layout_entries(&sample_document()) {
+            assert!(!e.note.is_empty(), "{} has no meaning in note_for()", e.path);
+            // A bare '|' would split a Markdown table cell.
+            assert!(!e.note.contains('|'), "{}", e.note);
+        }
     }
 
     #[test]
