@@ -4,14 +4,6 @@
 
 mod common;
 
-/// HDF5 1.10 locks files with flock, and a child process inherits the descriptors of files
-/// other test threads are writing at that moment, keeping their locks alive. Tests that
-/// write HDF5 or start Python therefore run one at a time.
-fn serial() -> std::sync::MutexGuard<'static, ()> {
-    static SERIAL: std::sync::Mutex<()> = std::sync::Mutex::new(());
-    SERIAL.lock().unwrap_or_else(|p| p.into_inner())
-}
-
 use std::path::Path;
 use tagsieve::engine::tables::*;
 use tagsieve::output::hdf5::read_document;
@@ -100,7 +92,6 @@ fn canon(g: &Group) -> Group {
 
 #[test]
 fn hdf5_round_trip_through_the_hdf5_crate() {
-    let _serial = serial();
     let d = tempfile::tempdir().unwrap();
     let doc = sample_doc(d.path());
     let p = d.path().join("run.h5");
@@ -192,7 +183,6 @@ fn expect_group(dump: &serde_json::Value, g: &Group, path: &str) {
 
 #[test]
 fn hdf5_file_reads_back_identically_in_h5py() {
-    let _serial = serial();
     let d = tempfile::tempdir().unwrap();
     let doc = sample_doc(d.path());
     let p = d.path().join("run.h5");
@@ -267,7 +257,6 @@ fn expect_csv(parsed: &serde_json::Value, g: &Group, path: &str) {
 
 #[test]
 fn csv_sections_parse_back_with_python_csv() {
-    let _serial = serial();
     let d = tempfile::tempdir().unwrap();
     let doc = sample_doc(d.path());
     let p = d.path().join("run.csv");
@@ -336,7 +325,6 @@ fn expect_json(v: &serde_json::Value, g: &Group, at: &str) {
 
 #[test]
 fn json_parses_back_with_python_json_exactly() {
-    let _serial = serial();
     let d = tempfile::tempdir().unwrap();
     let doc = sample_doc(d.path());
     let p = d.path().join("run.json");

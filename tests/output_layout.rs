@@ -5,14 +5,6 @@
 
 mod common;
 
-/// HDF5 1.10 locks files with flock, and a child process inherits the descriptors of files
-/// other test threads are writing at that moment, keeping their locks alive. Tests that
-/// write HDF5 or start Python therefore run one at a time.
-fn serial() -> std::sync::MutexGuard<'static, ()> {
-    static SERIAL: std::sync::Mutex<()> = std::sync::Mutex::new(());
-    SERIAL.lock().unwrap_or_else(|p| p.into_inner())
-}
-
 use hdf5 as h5;
 use h5::types::{FloatSize, IntSize, TypeDescriptor};
 use h5::{IndexType, IterationOrder, LocationType};
@@ -21,7 +13,6 @@ use tagsieve::output::{write_document, Format};
 
 #[test]
 fn docs_file_matches_generated_layout() {
-    let _serial = serial();
     let path = common::root().join("docs/hdf5-layout.md");
     let generated = describe_layout();
     if std::env::var_os("TAGSIEVE_BLESS").is_some() {
@@ -91,7 +82,6 @@ fn walk(g: &h5::Group, path: &str, out: &mut Vec<LayoutEntry>) {
 
 #[test]
 fn written_file_holds_exactly_the_documented_entries() {
-    let _serial = serial();
     let d = tempfile::tempdir().unwrap();
     let p = write_sample(d.path());
     let f = h5::File::open(&p).unwrap();
@@ -116,7 +106,6 @@ fn written_file_holds_exactly_the_documented_entries() {
 
 #[test]
 fn h5dump_sees_the_documented_names_and_types() {
-    let _serial = serial();
     // h5dump is the HDF Group's reference dumper (Debian hdf5-tools); skip only where absent.
     let d = tempfile::tempdir().unwrap();
     let Ok(out) = std::process::Command::new("h5dump").arg("-H").arg(write_sample(d.path())).output() else {

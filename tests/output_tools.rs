@@ -5,14 +5,6 @@
 
 mod common;
 
-/// HDF5 1.10 locks files with flock, and a child process inherits the descriptors of files
-/// other test threads are writing at that moment, keeping their locks alive. Tests that
-/// write HDF5 or start Python therefore run one at a time.
-fn serial() -> std::sync::MutexGuard<'static, ()> {
-    static SERIAL: std::sync::Mutex<()> = std::sync::Mutex::new(());
-    SERIAL.lock().unwrap_or_else(|p| p.into_inner())
-}
-
 use std::path::{Path, PathBuf};
 use tagsieve::engine::tables::*;
 use tagsieve::output::layout::run_document;
@@ -129,7 +121,6 @@ fn independent_count(fx: &Fixture, h5: &Path) -> std::process::Output {
 
 #[test]
 fn independent_count_agrees_with_brute_force_counts() {
-    let _serial = serial();
     let fx = fixture();
     // The edge offsets must matter, or the test could not tell |Δ| ≤ 400 from |Δ| < 400.
     let tags: Vec<Vec<u64>> = (1..=3).map(channel_tags).collect();
@@ -145,7 +136,6 @@ fn independent_count_agrees_with_brute_force_counts() {
 
 #[test]
 fn independent_count_reports_an_off_by_one_count() {
-    let _serial = serial();
     let fx = fixture();
     let mut block = fx.block.clone();
     block.coincidences[1].coincidences += 1;
@@ -162,7 +152,6 @@ fn independent_count_reports_an_off_by_one_count() {
 
 #[test]
 fn read_tables_prints_blocks_with_units_and_provenance() {
-    let _serial = serial();
     let fx = fixture();
     let h5 = fx.dir.join("good.h5");
     write(&fx.block, &h5);

@@ -28,6 +28,10 @@ impl Writer for Hdf5Writer {
         builder.with_fcpl(|p| {
             p.link_creation_order(LinkCreationOrder::Indexed).attr_creation_order(AttrCreationOrder::Indexed)
         });
+        // The temporary is ours alone until it is renamed, so HDF5's flock adds nothing;
+        // without it a child process that inherits the descriptor cannot keep the file
+        // locked after we close it, and file systems without flock still work.
+        builder.with_fapl(|p| p.file_locking(false));
         let file = builder.create(dest).map_err(ctx.err("create file"))?;
         ctx.write_group_contents(&file, &doc.root, "/")?;
         file.flush().map_err(ctx.err("flush"))?;
