@@ -11,6 +11,7 @@ pub mod engine;
 pub mod error;
 pub mod manifest;
 pub mod output;
+pub mod pipeline;
 pub mod progress;
 pub mod read;
 pub mod simulate;

@@ -68,9 +68,9 @@ fn zero_jitter_coincidence_rates_match_the_model() {
 fn quantum_correlations_follow_v_cos_2_delta() {
     let (src, dets) = (source(1.0e6, 0.95, Correlation::Quantum), ideal_detectors(0.5));
     let one = |a: f64, b: f64, seed| correlation(outcome_counts(&dets, &simulate_block(&src, &dets, deg(a, b), 500_000_000_000, seed).unwrap()));
-    for (i, (a, b)) in [(0.0, 0.0), (0.0, 30.0), (10.0, 100.0)].into_iter().enumerate() {
+    for (i, (a, b)) in [(0.0f64, 0.0f64), (0.0, 30.0), (10.0, 100.0)].into_iter().enumerate() {
         let (e, s) = one(a, b, i as u64);
-        let expected = 0.95 * (2.0 * (a - b as f64).to_radians()).cos();
+        let expected = 0.95 * (2.0 * (a - b).to_radians()).cos();
         assert!((e - expected).abs() <= 3.0 * s, "E({a},{b}) = {e} ± {s}, expected {expected}");
     }
     let (s_val, s_sigma) = chsh(&src, &dets, 100);

@@ -1,6 +1,7 @@
 //! One file per subcommand; each parses its arguments and calls the library.
 
 pub mod chsh;
+pub mod common;
 pub mod completions;
 pub mod count;
 pub mod demo;
@@ -57,4 +58,48 @@ pub fn report_error(e: &Error) -> i32 {
         eprintln!("  hint: {h}");
     }
     e.exit_code()
+}
+
+// ---- glue shared by the subcommands ----
+
+use std::path::{Path, PathBuf};
+use tagsieve::engine::tables::BlockTables;
+use tagsieve::output::{self, provenance::Provenance, Group};
+use tagsieve::read::TagSource;
+use tagsieve::Result;
+
+/// Open one block's inputs.
+pub fn open(input: &common::InputArgs, g: &Global) -> Result<Vec<Box<dyn TagSource>>> {
+    tagsieve::pipeline::open_block(&input.inputs, input.layout.as_deref(), g.read_options())
+}
+
+/// Record each input's path, size and checksum.
+pub fn add_inputs(mut p: Provenance, sources: &[Box<dyn TagSource>]) -> Result<Provenance> {
+    for s in sources {
+        p = p.input(&s.file().path)?;
+    }
+    Ok(p)
+}
+
+/// Write blocks (plus extra groups such as /chsh) to `out` in the chosen format.
+pub fn write_tables(blocks: &[BlockTables], prov: Provenance, extra: Vec<Group>, out: &Path, args: &common::OutputArgs) -> Result<()> {
+    let mut doc = output::layout::run_document(blocks, &prov);
+    doc.root.groups.extend(extra);
+    let dest = if out.as_os_str() == "-" { None } else { Some(out) };
+    output::write_document(&doc, dest, args.format, args.force)
+}
+
+/// One block as JSON for `--json`.
+pub fn block_json(b: &BlockTables) -> serde_json::Value {
+    serde_json::to_value(b).unwrap_or_default()
+}
+
+/// `plot.png` → `plot-1-3.png` when there are several pairs.
+pub fn per_pair_path(base: &Path, a: tagsieve::Channel, b: tagsieve::Channel, n: usize) -> PathBuf {
+    if n <= 1 {
+        return base.to_path_buf();
+    }
+    let stem = base.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default();
+    let ext = base.extension().map(|s| format!(".{}", s.to_string_lossy())).unwrap_or_default();
+    base.with_file_name(format!("{stem}-{a}-{b}{ext}"))
 }

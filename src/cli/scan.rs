@@ -1,11 +1,107 @@
-//! `tagsieve scan`.
+//! `tagsieve scan`: delay histograms per pair; with --reference, a delays file.
 
+use super::common::{self, InputArgs, OutputArgs, PairArgs};
 use super::Global;
-use tagsieve::Result;
+use std::path::PathBuf;
+use tagsieve::engine::{self, scan, tables::BlockTables, ScanConfig};
+use tagsieve::output::{provenance::Provenance, AttrValue};
+use tagsieve::{pipeline, Channel, Result};
 
 #[derive(clap::Args, Debug)]
-pub struct Args {}
+pub struct Args {
+    #[command(flatten)]
+    pub input: InputArgs,
+    #[command(flatten)]
+    pub pairs: PairArgs,
+    /// Half-range of the histogram, ps: Δ from −span to +span.
+    #[arg(long, default_value_t = 100_000, value_name = "PS")]
+    pub span_ps: u64,
+    /// Bin width, ps.
+    #[arg(long, default_value_t = 20, value_name = "PS")]
+    pub bin_ps: u64,
+    /// Propose every other channel's delay relative to this channel and write them.
+    #[arg(long, value_name = "CH")]
+    pub reference: Option<Channel>,
+    /// Delays file to write with --reference.
+    #[arg(long, default_value = "delays.toml", value_name = "FILE")]
+    pub delays_out: PathBuf,
+    /// Plot the histograms: one file per pair (`NAME-A-B.png|svg`).
+    #[arg(long, value_name = "FILE")]
+    pub plot: Option<PathBuf>,
+    /// Logarithmic count axis in plots.
+    #[arg(long)]
+    pub log: bool,
+    /// Block label used as the HDF5 group name.
+    #[arg(long, default_value = "block", value_name = "NAME")]
+    pub label: String,
+    #[command(flatten)]
+    pub out: OutputArgs,
+}
 
-pub fn run(_args: Args, _g: &Global) -> Result<()> {
-    Err(tagsieve::Error::Usage("scan: not built yet".into()))
+pub fn run(args: Args, g: &Global) -> Result<()> {
+    args.out.precheck()?;
+    let cfg = ScanConfig { pairs: args.pairs.pairs()?, delays: args.pairs.delays()?, span_ps: args.span_ps, bin_ps: args.bin_ps };
+    let mode = args.input.mode()?;
+    let sources = super::open(&args.input, g)?;
+    let block = pipeline::scan_sources(&args.label, &sources, &cfg, mode, g.quiet)?;
+    let proposal = args.reference.map(|r| scan::propose_delays(&block.scans, r));
+    if let Some((delays, unreached)) = &proposal {
+        if !unreached.is_empty() && !g.quiet {
+            eprintln!("tagsieve: no coincidence peak links channel(s) {unreached:?} to the reference; they keep delay 0");
+        }
+        let mut d = delays.clone();
+        for c in unreached {
+            d.by_channel.entry(*c).or_insert(0);
+        }
+        tagsieve::output::atomic::write_bytes(&args.delays_out, d.to_toml().as_bytes(), true)?;
+    }
+    if let Some(plot) = &args.plot {
+        for s in &block.scans {
+            let path = super::per_pair_path(plot, s.a, s.b, block.scans.len());
+            tagsieve::output::plot::plot_scan(s, None, args.log, &path, true)?;
+        }
+    }
+    if let Some(out) = &args.out.output {
+        let p = Provenance::new(common::command_line())
+            .param("command", AttrValue::Str("scan".into()))
+            .param("span_ps", AttrValue::U64(cfg.span_ps))
+            .param("bin_ps", AttrValue::U64(cfg.bin_ps));
+        let p = super::add_inputs(p, &sources)?;
+        super::write_tables(std::slice::from_ref(&block), p, vec![], out, &args.out)?;
+    }
+    print_scan(&block, proposal.as_ref().map(|x| &x.0), &args, g);
+    Ok(())
+}
+
+fn print_scan(block: &BlockTables, proposal: Option<&engine::Delays>, args: &Args, g: &Global) {
+    if g.json {
+        let mut v = super::block_json(block);
+        if let Some(d) = proposal {
+            v["proposed_delays_ps"] = serde_json::json!(d.by_channel.iter().map(|(k, v)| (k.to_string(), *v)).collect::<std::collections::BTreeMap<_, _>>());
+            v["delays_file"] = serde_json::json!(args.delays_out);
+        }
+        common::print_json(&v);
+        return;
+    }
+    println!("{:>6} {:>14} {:>10} {:>10} {:>10} {:>10}", "pair", "peak Δ", "σ", "FWHM", "height", "background");
+    for s in &block.scans {
+        match s.peak {
+            Some(p) => println!(
+                "{:>6} {:>14} {:>10} {:>10} {:>10.0} {:>10.1}",
+                format!("{}:{}", s.a, s.b),
+                common::ps(p.delay_ps),
+                common::ps(p.delay_sigma_ps),
+                common::ps(p.fwhm_ps),
+                p.height,
+                p.background
+            ),
+            None => println!("{:>6} {:>14}", format!("{}:{}", s.a, s.b), "no peak"),
+        }
+    }
+    if let Some(d) = proposal {
+        println!("proposed delays (reference channel {}), written to {}:", d.reference.unwrap_or(0), args.delays_out.display());
+        for (c, v) in &d.by_channel {
+            println!("  {c} = {v} ps");
+        }
+    }
 }

@@ -35,10 +35,10 @@ pub struct Args {
     #[arg(long, default_value_t = 2.0, value_name = "S")]
     pub duration_s: f64,
     /// CHSH analyzer angles a,a',b,b' (degrees).
-    #[arg(long, value_name = "DEG,DEG,DEG,DEG", default_value = "0,45,22.5,67.5", value_delimiter = ',', num_args = 4)]
+    #[arg(long, value_name = "DEG,DEG,DEG,DEG", default_value = "0,45,22.5,67.5", value_delimiter = ',')]
     pub angles: Vec<f64>,
     /// Visibility series instead of CHSH: Alice (Larch) fixed at a, Bob (Rowan) at each of
-    /// these angles (degrees), e.g. 0,22.5,45,67.5,90.
+    /// these angles (degrees), e.g. 0,22.5,45,67.5,90. Default: none (the four CHSH blocks).
     #[arg(long, value_name = "DEG,...", value_delimiter = ',')]
     pub series: Option<Vec<f64>>,
     /// Override a detector, CH:key=value[,key=value...] (repeatable). Keys (units):
@@ -50,6 +50,9 @@ pub struct Args {
     /// channel) or records (16-byte interleaved records).
     #[arg(long, value_enum, default_value_t = FormatArg::Container)]
     pub format: FormatArg,
+    /// Coincidence window to record in run.toml (ps); default: none, chosen later by a sweep.
+    #[arg(long, value_name = "PS")]
+    pub window_ps: Option<u64>,
     /// Leave the true cable delays out of run.toml (so they must be found with scan).
     #[arg(long)]
     pub omit_delays: bool,
@@ -145,6 +148,7 @@ fn config(args: &Args) -> Result<RunConfig> {
             FormatArg::Arrays => InputFormat::Arrays,
             FormatArg::Records => InputFormat::Records,
         },
+        window_ps: args.window_ps,
         omit_delays: args.omit_delays,
         description,
     })

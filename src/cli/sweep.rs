@@ -1,11 +1,116 @@
-//! `tagsieve sweep`.
+//! `tagsieve sweep`: coincidences, accidentals, net counts and CAR against window; a
+//! recommended window.
 
+use super::common::{self, AccidentalArgs, InputArgs, OutputArgs, PairArgs};
 use super::Global;
-use tagsieve::Result;
+use std::path::PathBuf;
+use tagsieve::engine::{sweep, tables::BlockTables, CountConfig, Criterion};
+use tagsieve::output::{provenance::Provenance, AttrValue};
+use tagsieve::{pipeline, Error, Result};
 
 #[derive(clap::Args, Debug)]
-pub struct Args {}
+pub struct Args {
+    #[command(flatten)]
+    pub input: InputArgs,
+    #[command(flatten)]
+    pub pairs: PairArgs,
+    /// Windows to try, ps (comma-separated). Overrides --from-ps/--to-ps/--step-ps.
+    #[arg(long, value_delimiter = ',', value_name = "PS")]
+    pub windows_ps: Vec<u64>,
+    /// Smallest window of the range, ps.
+    #[arg(long, default_value_t = 100, value_name = "PS")]
+    pub from_ps: u64,
+    /// Largest window of the range, ps.
+    #[arg(long, default_value_t = 3000, value_name = "PS")]
+    pub to_ps: u64,
+    /// Step of the range, ps.
+    #[arg(long, default_value_t = 100, value_name = "PS")]
+    pub step_ps: u64,
+    /// How to recommend a window: `net-significance` (largest net/σ_net) or
+    /// `peak-fraction` (smallest window holding ≥ --fraction of the widest window's net counts).
+    #[arg(long, default_value = "net-significance", value_name = "RULE")]
+    pub criterion: String,
+    /// Fraction for `--criterion peak-fraction` (dimensionless).
+    #[arg(long, default_value_t = 0.99, value_name = "F")]
+    pub fraction: f64,
+    #[command(flatten)]
+    pub acc: AccidentalArgs,
+    /// Plot each pair's sweep (`NAME-A-B.png|svg` when there are several pairs).
+    #[arg(long, value_name = "FILE")]
+    pub plot: Option<PathBuf>,
+    /// Block label used as the HDF5 group name.
+    #[arg(long, default_value = "block", value_name = "NAME")]
+    pub label: String,
+    #[command(flatten)]
+    pub out: OutputArgs,
+}
 
-pub fn run(_args: Args, _g: &Global) -> Result<()> {
-    Err(tagsieve::Error::Usage("sweep: not built yet".into()))
+pub fn criterion(name: &str, fraction: f64) -> Result<Criterion> {
+    match name {
+        "net-significance" => Ok(Criterion::MaxNetSignificance),
+        "peak-fraction" if fraction > 0.0 && fraction <= 1.0 => Ok(Criterion::PeakFraction(fraction)),
+        "peak-fraction" => Err(Error::Usage(format!("--fraction {fraction}: must be in (0, 1]"))),
+        other => Err(Error::Usage(format!("--criterion {other}: expected net-significance or peak-fraction"))),
+    }
+}
+
+pub fn run(args: Args, g: &Global) -> Result<()> {
+    args.out.precheck()?;
+    let windows = if args.windows_ps.is_empty() {
+        sweep::window_range(args.from_ps, args.to_ps, args.step_ps)?
+    } else {
+        args.windows_ps.clone()
+    };
+    let crit = criterion(&args.criterion, args.fraction)?;
+    let cfg = CountConfig {
+        pairs: args.pairs.pairs()?,
+        delays: args.pairs.delays()?,
+        window_ps: *windows.iter().max().unwrap_or(&1),
+        offsets_ps: args.acc.offsets_ps(),
+        slice_ps: args.acc.slice_ps()?,
+    };
+    let mode = args.input.mode()?;
+    let sources = super::open(&args.input, g)?;
+    let block = pipeline::sweep_sources(&args.label, &sources, &cfg, &windows, crit, mode, g.quiet)?;
+    if let Some(plot) = &args.plot {
+        for s in &block.sweeps {
+            tagsieve::output::plot::plot_sweep(s, &super::per_pair_path(plot, s.a, s.b, block.sweeps.len()), true)?;
+        }
+    }
+    if let Some(out) = &args.out.output {
+        let p = Provenance::new(common::command_line())
+            .param("command", AttrValue::Str("sweep".into()))
+            .param("windows_ps", AttrValue::Str(format!("{windows:?}")))
+            .param("criterion", AttrValue::Str(crit.name()))
+            .param("slice_ps", AttrValue::U64(cfg.slice_ps))
+            .param("acc_offsets_ps", AttrValue::Str(format!("{:?}", cfg.offsets_ps)));
+        let p = super::add_inputs(p, &sources)?;
+        super::write_tables(std::slice::from_ref(&block), p, vec![], out, &args.out)?;
+    }
+    print_sweep(&block, g);
+    Ok(())
+}
+
+fn print_sweep(block: &BlockTables, g: &Global) {
+    if g.json {
+        common::print_json(&super::block_json(block));
+        return;
+    }
+    for s in &block.sweeps {
+        println!("pair {}:{}  (δ = {}; recommended window {} by {})", s.a, s.b, common::ps(s.rel_delay_ps as f64), common::ps(s.recommended_window_ps as f64), s.criterion);
+        println!("  {:>10} {:>12} {:>12} {:>12} {:>16} {:>8} {:>8}", "window", "coinc", "acc(analyt)", "acc(meas)", "net ± σ", "net/σ", "CAR");
+        for r in &s.rows {
+            let mark = if r.window_ps == s.recommended_window_ps { " <" } else { "" };
+            println!(
+                "  {:>10} {:>12} {:>12.1} {:>12.1} {:>16} {:>8.1} {:>8.1}{mark}",
+                common::ps(r.window_ps as f64),
+                r.coincidences,
+                r.acc_analytic.value,
+                r.acc_measured.value,
+                format!("{:.1} ± {:.1}", r.net.value, r.net.sigma),
+                r.net.value / r.net.sigma,
+                r.car
+            );
+        }
+    }
 }

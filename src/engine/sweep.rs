@@ -14,7 +14,8 @@ use crate::{ChannelTags, Error, Result};
 /// How the recommended window is chosen.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum Criterion {
-    /// The window with the largest net/σ_net (default).
+    /// The window with the largest net/σ_net (default); near-ties (within
+    /// [`SIGNIFICANCE_TIE`]) go to the smallest window.
     MaxNetSignificance,
     /// The smallest window whose net count is ≥ `fraction` of the net count in the widest
     /// window swept (the peak's net counts).
@@ -143,14 +144,18 @@ impl Cumulative {
     }
 }
 
+/// Differences of net/σ_net below this are not meaningful; among windows that close to
+/// the best, the smallest is recommended.
+pub const SIGNIFICANCE_TIE: f64 = 0.1;
+
 /// Apply the criterion to the swept rows (ordered by window).
 pub fn recommend(rows: &[super::tables::CoincidenceRow], criterion: Criterion) -> u64 {
     match criterion {
-        Criterion::MaxNetSignificance => rows
-            .iter()
-            .map(|r| (r.window_ps, if r.net.sigma > 0.0 { r.net.value / r.net.sigma } else { f64::NEG_INFINITY }))
-            .fold((0u64, f64::NEG_INFINITY), |best, (w, s)| if s > best.1 { (w, s) } else { best })
-            .0,
+        Criterion::MaxNetSignificance => {
+            let z = |r: &super::tables::CoincidenceRow| if r.net.sigma > 0.0 { r.net.value / r.net.sigma } else { f64::NEG_INFINITY };
+            let best = rows.iter().map(z).fold(f64::NEG_INFINITY, f64::max);
+            rows.iter().find(|r| z(r) >= best - SIGNIFICANCE_TIE).map(|r| r.window_ps).unwrap_or(0)
+        }
         Criterion::PeakFraction(f) => {
             let total = rows.last().map(|r| r.net.value).unwrap_or(0.0);
             rows.iter().find(|r| r.net.value >= f * total).map(|r| r.window_ps).unwrap_or(0)

@@ -16,7 +16,6 @@ pub(super) struct SpanIndex {
     roles: Option<Spanned<RoleSpans>>,
     channel: Vec<ChannelSpans>,
     block: Vec<Spanned<BlockSpans>>,
-    delays_file: Span,
 }
 
 #[derive(Deserialize, Default)]

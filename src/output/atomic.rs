@@ -62,6 +62,7 @@ impl AtomicOutput {
     pub fn commit(mut self) -> Result<()> {
         let f = std::fs::OpenOptions::new().read(true).open(&self.temp_path).map_err(|e| Error::io(&self.temp_path, e))?;
         f.sync_all().map_err(|e| Error::io(&self.final_path, e))?;
+        set_readable(&self.temp_path);
         std::fs::rename(&self.temp_path, &self.final_path).map_err(|e| Error::io(&self.final_path, e))?;
         self.committed = true;
         forget_pending(&self.temp_path);
@@ -76,6 +77,17 @@ impl Drop for AtomicOutput {
             forget_pending(&self.temp_path);
         }
     }
+}
+
+/// Temporaries are created 0600; a finished output gets the usual 0644.
+fn set_readable(p: &Path) {
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        let _ = std::fs::set_permissions(p, std::fs::Permissions::from_mode(0o644));
+    }
+    #[cfg(not(unix))]
+    let _ = p;
 }
 
 fn forget_pending(p: &Path) {

@@ -7,6 +7,7 @@ pub mod csv;
 pub mod hdf5;
 pub mod json;
 pub mod layout;
+pub mod layout_analysis;
 pub mod plot;
 pub mod provenance;
 

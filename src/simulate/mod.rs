@@ -123,7 +123,8 @@ pub fn block_seed(run_seed: u64, block_index: u64) -> u64 {
 
 /// Simulate one block of `duration_ps` at `setting`: the detectors' tags, one
 /// [`ChannelTags`] per detector ordered by channel number, each sorted ascending, all in
-/// [0, duration_ps). Same inputs → same tags, on any number of threads.
+/// [0, duration_ps). Emission starts at t = 0 (so a channel with delay d sees no pair
+/// photons before d). Same inputs → same tags, on any number of threads.
 pub fn simulate_block(
     source: &SourceModel,
     detectors: &[DetectorModel],

@@ -29,6 +29,8 @@ pub struct RunConfig {
     pub duration_s: f64,
     pub seed: u64,
     pub format: InputFormat,
+    /// Coincidence window to record in the manifest (ps); `None` leaves it to a sweep.
+    pub window_ps: Option<u64>,
     /// Leave the true cable delays out of the manifest (so `scan` has to find them).
     pub omit_delays: bool,
     /// Free text for the manifest's `description`.
@@ -57,7 +59,7 @@ pub struct RunSummary {
 impl RunConfig {
     fn duration_ps(&self) -> Result<u64> {
         let ps = self.duration_s * 1e12;
-        if !(ps.is_finite() && ps >= 1.0 && ps < 1.8e19) {
+        if !(1.0..1.8e19).contains(&ps) {
             return Err(Error::Usage(format!("simulate: duration_s = {}, expected a positive number of seconds", self.duration_s)));
         }
         Ok(ps.round() as u64)
@@ -122,7 +124,7 @@ impl RunConfig {
             manifest_version: MANIFEST_VERSION,
             description: Some(self.description.clone()),
             setup: self.setup,
-            window_ps: None,
+            window_ps: self.window_ps,
             delays_file: None,
             roles,
             settings: self.settings.clone(),

@@ -1,0 +1,140 @@
+//! Argument groups several subcommands share, and the small glue between them and the
+//! library (opening inputs, delays, output destinations, printing).
+
+use std::path::{Path, PathBuf};
+use tagsieve::engine::{accidentals, count::DEFAULT_SLICE_PS, Delays};
+use tagsieve::{Channel, Error, Result};
+
+/// Input files of one block.
+#[derive(clap::Args, Debug, Clone)]
+pub struct InputArgs {
+    /// Input files: `CH=PATH` for a per-channel u64 array, a container file, or an
+    /// interleaved-record file (with --layout).
+    #[arg(required = true, value_name = "INPUT")]
+    pub inputs: Vec<String>,
+    /// Record layout for interleaved-record inputs: a layout TOML file or a compact spec
+    /// (see docs/formats.md).
+    #[arg(long, value_name = "FILE|SPEC")]
+    pub layout: Option<String>,
+    /// Pass over the data: `auto` (stream a single record file with bounded memory, map
+    /// everything else whole), `whole` or `stream`.
+    #[arg(long = "pass", default_value = "auto", value_name = "MODE")]
+    pub pass: String,
+}
+
+impl InputArgs {
+    pub fn mode(&self) -> Result<tagsieve::pipeline::PassMode> {
+        tagsieve::pipeline::PassMode::parse(&self.pass)
+    }
+}
+
+/// Channel pairs and delays.
+#[derive(clap::Args, Debug, Clone)]
+pub struct PairArgs {
+    /// Channel pairs A:B (comma-separated, e.g. `1:3,1:4`); default: every pair.
+    #[arg(long, value_delimiter = ',', value_name = "A:B")]
+    pub pairs: Vec<String>,
+    /// Delay of a channel in ps (how late its signals arrive), `CH=PS`; repeatable.
+    #[arg(long = "delay", value_name = "CH=PS")]
+    pub delay: Vec<String>,
+    /// Delays file written by `tagsieve scan --reference` (flags given with --delay override it).
+    #[arg(long, value_name = "FILE")]
+    pub delays: Option<PathBuf>,
+}
+
+impl PairArgs {
+    pub fn pairs(&self) -> Result<Vec<(Channel, Channel)>> {
+        parse_pairs(&self.pairs)
+    }
+    pub fn delays(&self) -> Result<Delays> {
+        let mut d = match &self.delays {
+            Some(p) => Delays::load(p)?,
+            None => Delays::default(),
+        };
+        d.apply_flags(&self.delay)?;
+        Ok(d)
+    }
+}
+
+pub fn parse_pairs(specs: &[String]) -> Result<Vec<(Channel, Channel)>> {
+    specs
+        .iter()
+        .map(|s| {
+            let (a, b) = s.split_once(':').ok_or_else(|| Error::Usage(format!("--pairs {s}: expected A:B, e.g. 1:3")))?;
+            let p = |x: &str| x.trim().parse::<Channel>().map_err(|_| Error::Usage(format!("--pairs {s}: '{x}' is not a channel number")));
+            Ok((p(a)?, p(b)?))
+        })
+        .collect()
+}
+
+/// Accidental-estimate settings.
+#[derive(clap::Args, Debug, Clone)]
+pub struct AccidentalArgs {
+    /// Offsets from the peak of the off-peak windows for the measured accidentals, ps
+    /// (comma-separated); default ±1, ±2, ±3, ±4, ±5 µs.
+    #[arg(long, value_delimiter = ',', allow_hyphen_values = true, value_name = "PS")]
+    pub acc_offsets_ps: Vec<i64>,
+    /// Time-slice length for the analytic accidentals, s (rates may drift between slices).
+    #[arg(long, default_value_t = DEFAULT_SLICE_PS as f64 * 1e-12, value_name = "S")]
+    pub slice_s: f64,
+}
+
+impl AccidentalArgs {
+    pub fn offsets_ps(&self) -> Vec<i64> {
+        if self.acc_offsets_ps.is_empty() { accidentals::default_offsets_ps() } else { self.acc_offsets_ps.clone() }
+    }
+    pub fn slice_ps(&self) -> Result<u64> {
+        if !(self.slice_s.is_finite() && self.slice_s > 0.0) {
+            return Err(Error::Usage(format!("--slice-s {}: must be > 0 s", self.slice_s)));
+        }
+        Ok((self.slice_s * 1e12).round().max(1.0) as u64)
+    }
+}
+
+/// Where tables go.
+#[derive(clap::Args, Debug, Clone)]
+pub struct OutputArgs {
+    /// Output file for the tables (`-` = stdout, CSV/JSON only).
+    #[arg(short = 'o', long = "output", value_name = "FILE")]
+    pub output: Option<PathBuf>,
+    /// Table format.
+    #[arg(long, value_enum, default_value_t = tagsieve::output::Format::Hdf5)]
+    pub format: tagsieve::output::Format,
+    /// Replace an existing output file.
+    #[arg(long)]
+    pub force: bool,
+}
+
+impl OutputArgs {
+    /// Fail early (before any long pass) on an output that cannot be written.
+    pub fn precheck(&self) -> Result<()> {
+        if let Some(p) = &self.output {
+            if p.as_os_str() == "-" {
+                return Ok(());
+            }
+            let dir = p.parent().filter(|d| !d.as_os_str().is_empty()).unwrap_or(Path::new("."));
+            if !dir.is_dir() {
+                return Err(Error::Usage(format!("{}: output directory {} does not exist", p.display(), dir.display())));
+            }
+            if p.exists() && !self.force {
+                return Err(Error::OutputExists(p.clone()));
+            }
+        }
+        Ok(())
+    }
+}
+
+/// The whole command line, for provenance.
+pub fn command_line() -> Vec<String> {
+    std::env::args().collect()
+}
+
+/// Print a JSON value on stdout.
+pub fn print_json(v: &serde_json::Value) {
+    println!("{}", serde_json::to_string_pretty(v).unwrap_or_default());
+}
+
+/// A number of ps in the most readable unit.
+pub fn ps(v: f64) -> String {
+    tagsieve::units::fmt_duration_ps(v)
+}
