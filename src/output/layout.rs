@@ -208,7 +208,41 @@ pub fn sample_document() -> Document {
     prov.inputs.push(super::provenance::InputRecord { path: "{input}".into(), size_bytes: 0, xxh3: "{xxh3}".into() });
     let mut doc = run_document(&[sample_block()], &prov);
     rename_pairs(&mut doc.root);
+    doc.root.groups.extend(sample_analysis_groups());
     doc
+}
+
+/// `/chsh`, `/visibility` and `/bell3` as `tagsieve chsh` adds them (see
+/// [`super::layout_analysis`]), built from fixed sample counts.
+fn sample_analysis_groups() -> Vec<Group> {
+    use super::layout_analysis::{bell3_group, chsh_group, visibility_group};
+    use crate::analysis::{bell3, chsh, visibility};
+    let one = Estimate { value: 1.0, sigma: 1.0 };
+    let setting = |label_a: &str, label_b: &str, angle_a_deg: f64, angle_b_deg: f64| chsh::SettingCounts {
+        label_a: label_a.into(),
+        label_b: label_b.into(),
+        angle_a_deg,
+        angle_b_deg,
+        counts: [40, 10, 10, 40],
+        accidentals: Some([one; 4]),
+        live_time_s: None,
+    };
+    let settings = [setting("a", "b", 0.0, 22.5), setting("a", "b'", 0.0, 67.5), setting("a'", "b", 45.0, 22.5), setting("a'", "b'", 45.0, 67.5)];
+    let mut groups = Vec::new();
+    if let Ok(report) = chsh::evaluate(&settings) {
+        groups.push(chsh_group(&report));
+    }
+    let points: Vec<visibility::AnglePoint> =
+        [0.0, 45.0, 90.0, 135.0].iter().zip([90, 50, 10, 50]).map(|(&angle_deg, counts)| visibility::AnglePoint { angle_deg, counts }).collect();
+    if let Ok(fit) = visibility::fit_visibility("basis", &points) {
+        let mut g = visibility_group(&[(fit, points)]);
+        for t in g.tables.iter_mut().filter(|t| t.name.starts_with("points_")) {
+            t.name = "points_{basis}".into();
+        }
+        groups.push(g);
+    }
+    groups.push(bell3_group(&bell3::evaluate(one, one, one, bell3::Convention::AntiCorrelated), [0.0, 22.5, 45.0]));
+    groups
 }
 
 fn rename_pairs(g: &mut Group) {
@@ -304,6 +338,10 @@ fn rows_meaning(table_path: &str, column: &str) -> &'static str {
         ("singles", _) | ("delays", _) => "channels",
         ("coincidences", _) => "channel pairs",
         ("off_peak_windows", _) => "channel pairs × off-peak windows",
+        ("correlations", _) => "setting pairs",
+        ("s_values", _) => "S variants × (raw, corrected)",
+        ("fits", _) => "bases",
+        ("points_{basis}", _) => "angles measured",
         _ => "rows",
     }
 }
@@ -311,6 +349,9 @@ fn rows_meaning(table_path: &str, column: &str) -> &'static str {
 /// The meaning of a group, attribute or column, by its name and where it sits.
 fn note_for(kind: EntryKind, path: &str) -> &'static str {
     let (parent, name) = path.rsplit_once(['/', '@']).unwrap_or(("", path));
+    if ["/chsh", "/visibility", "/bell3"].iter().any(|g| path.starts_with(g)) {
+        return analysis_note(path, name);
+    }
     let in_scan = parent.contains("/scans/");
     match name {
         "" => "root: provenance attributes",
@@ -370,6 +411,53 @@ fn note_for(kind: EntryKind, path: &str) -> &'static str {
     }
 }
 
+/// Meanings under `/chsh`, `/visibility` and `/bell3` (definitions in src/analysis).
+fn analysis_note(path: &str, name: &str) -> &'static str {
+    let chsh = path.starts_with("/chsh");
+    match name {
+        "chsh" => "CHSH S from four setting pairs (primary convention S = E(a,b) − E(a,b') + E(a',b) + E(a',b'))",
+        "s_raw" | "s_raw_sigma" => "primary S from raw counts, ±1σ",
+        "violation_raw_sigma" => "(abs(S) − 2)/σ of the raw primary S",
+        "p_value_raw" => "one-sided normal p-value of violation_raw_sigma",
+        "from_rates" => "1 when E was formed from rates (per-run live times)",
+        "caution" => "what the p-values assume",
+        "s_corrected" | "s_corrected_sigma" => "primary S after subtracting accidentals, ±1σ (only with accidental estimates)",
+        "correlations" => "one row per setting pair: ab, ab', a'b, a'b'",
+        "setting_pair" => "setting pair label",
+        "angle_a_deg" | "angle_b_deg" => "analyzer angles of the two sides",
+        "n_pp" | "n_pm" | "n_mp" | "n_mm" => "coincidences per outcome ++, +−, −+, −−",
+        "e_raw" | "e_raw_sigma" => "correlation E from raw counts, ±1σ",
+        "e_corrected" | "e_corrected_sigma" => "E after subtracting accidentals, ±1σ (NaN without estimates)",
+        "s_values" => "the four sign variants of S, raw and corrected",
+        "kind" => "raw or accidental-corrected",
+        "formula" => "which term carries the minus sign",
+        "s" | "s_sigma" => "S of the variant, ±1σ",
+        "violation_sigma" if chsh => "(abs(S) − 2)/σ",
+        "p_value" if chsh => "one-sided normal p-value of violation_sigma",
+        "is_primary" => "1 for the primary convention",
+        "is_max" => "1 for the variant with the largest abs(S) (a look-elsewhere choice)",
+        "visibility" if path == "/visibility" => "fringe fits N(θ) = A + B cos 2θ + C sin 2θ per basis",
+        "fits" => "one row per basis",
+        "basis" => "basis or pair name",
+        "amplitude" | "amplitude_sigma" => "mean count A, ±1σ",
+        "visibility" | "visibility_sigma" => "fringe visibility, ±1σ",
+        "theta0_deg" | "theta0_sigma_deg" => "fringe phase θ0 in (−90°, 90°], ±1σ",
+        "reduced_chi2" => "χ²/dof of the fit (NaN when dof = 0)",
+        "points_{basis}" => "the measured points of one basis",
+        "angle_deg" => "analyzer angle",
+        "counts" => "coincidences at the angle",
+        "bell3" => "three-setting form abs(E(a,b) − E(a,c)) ≤ 1 + E(b,c)",
+        "convention" => "AntiCorrelated applies the form to E; Correlated to −E",
+        "angles_deg" => "the three settings a, b, c",
+        "e_ab" | "e_ac" | "e_bc" => "measured correlations before any sign flip",
+        "lhs" | "rhs" => "the two sides of the form",
+        "margin" | "margin_sigma" => "lhs − rhs, ±1σ; > 0 is a violation",
+        "violation_sigma" => "margin / σ",
+        "p_value" => "one-sided normal p-value of violation_sigma",
+        _ => "",
+    }
+}
+
 /// docs/hdf5-layout.md: every group, attribute and dataset with dtype, shape and unit.
 pub fn describe_layout() -> String {
     let entries = layout_entries(&sample_document());
@@ -413,7 +501,7 @@ Layout version {LAYOUT_VERSION} (root attribute `layout_version`).
 
 - A **table** is a group holding one 1-D dataset per column, all of one length except a
   histogram's `bin_edges_ps` (one more than `counts`). Every dataset has a string attribute
-  `units`: `ps`, `s`, `Hz`, `counts`, `bytes`, `1` (dimensionless) or `\"\"` (a label or index).
+  `units`: `ps`, `s`, `Hz`, `counts`, `bytes`, `deg`, `1` (dimensionless) or `\"\"` (a label or index).
 - Types: `u64`/`i64` little-endian integers, `f64` IEEE doubles, `string` variable-length UTF-8.
   Times inside the engine are integer picoseconds; only derived quantities are floats.
 - Datasets longer than 4096 elements are chunked (65536 elements), shuffled and
@@ -426,8 +514,8 @@ Layout version {LAYOUT_VERSION} (root attribute `layout_version`).
   `rel_delay_ps` is d_B − d_A.
 - Provenance: the root attributes name the tool, version, full command line and UTC creation
   time; `/provenance/inputs` lists every input file with its size and XXH3-64 checksum.
-- Other stages add groups beside `/blocks` (for example `/chsh`); they are documented with
-  the stage that writes them.
+- `tagsieve chsh` adds `/chsh`, `/visibility` and `/bell3` beside `/blocks` (documented
+  below from a sample); `points_{basis}` is one table per fitted basis.
 - CSV output holds the same tree: `# group /path` and `# table /path` comment lines,
   attributes as `# key = value`, a header of `name [unit]` cells. JSON output nests
   `{\"attrs\", \"tables\", \"groups\"}` objects; a table is `{\"attrs\", \"columns\"}` and a column
@@ -442,7 +530,7 @@ mod tests {
     fn every_column_has_a_known_unit_and_equal_lengths() {
         let doc = sample_document();
         // Units of the trade (common practice, no source) plus "" for labels.
-        let known = ["ps", "s", "Hz", "counts", "1", "bytes", ""];
+        let known = ["ps", "s", "Hz", "counts", "1", "bytes", "deg", ""];
         for e in layout_entries(&doc).iter().filter(|e| e.kind == EntryKind::Dataset) {
             assert!(known.contains(&e.unit.as_str()), "{} has unit {:?}", e.path, e.unit);
         }
