@@ -1,7 +1,8 @@
 //! The Python tools against files written through layout.rs: tools/independent_count.py must
 //! agree with coincidence counts computed here by brute force (every pair tested against the
-//! rule 2·|Δ| ≤ w) and must flag a file whose count is off by one; tools/read_tables.py must
-//! print the tables with their units.
+//! rule 2·|Δ| ≤ w) and must flag a file whose count is off by one; a file from the real
+//! `tagsieve count` must pass it with those same counts; tools/read_tables.py must print the
+//! tables with their units.
 
 mod common;
 
@@ -160,5 +161,28 @@ fn read_tables_prints_blocks_with_units_and_provenance() {
     assert!(out.status.success(), "{stdout}{}", String::from_utf8_lossy(&out.stderr));
     for want in ["block run (window 801 ps", "events [counts]", "rate_hz [Hz]", "coincidences [counts]", "window_ps = 801", "command: test"] {
         assert!(stdout.contains(want), "missing {want:?} in\n{stdout}");
+    }
+}
+
+#[test]
+fn tagsieve_count_agrees_with_the_independent_recount() {
+    let fx = fixture();
+    let h5 = fx.dir.join("count.h5");
+    let mut cmd = common::tagsieve();
+    cmd.arg("--quiet").arg("count").arg("--window-ps").arg(WINDOW_PS.to_string()).arg("-o").arg(&h5);
+    for (ch, p) in &fx.tag_files {
+        cmd.arg(format!("{ch}={}", p.display()));
+    }
+    for (ch, d) in DELAYS_PS {
+        cmd.arg("--delay").arg(format!("{ch}={d}"));
+    }
+    let out = cmd.output().unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let out = independent_count(&fx, &h5);
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    assert_eq!(out.status.code(), Some(0), "{stdout}{}", String::from_utf8_lossy(&out.stderr));
+    // Every pair of the brute-force fixture was checked.
+    for r in &fx.block.coincidences {
+        assert!(stdout.contains(&format!("pair {}-{}: {} coincidences, {} heralded", r.a, r.b, r.coincidences, r.heralded)), "{stdout}");
     }
 }
