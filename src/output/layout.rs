@@ -504,7 +504,7 @@ Layout version {LAYOUT_VERSION} (root attribute `layout_version`).
   `units`: `ps`, `s`, `Hz`, `counts`, `bytes`, `deg`, `1` (dimensionless) or `\"\"` (a label or index).
 - Types: `u64`/`i64` little-endian integers, `f64` IEEE doubles, `string` variable-length UTF-8.
   Times inside the engine are integer picoseconds; only derived quantities are floats.
-- Datasets longer than 4096 elements are chunked (65536 elements), shuffled and
+- Datasets longer than 4096 elements are chunked (up to 65536 elements a chunk), shuffled and
   deflate-compressed (level 4); shorter ones are contiguous.
 - Placeholders: `{label}` is a block label, `{a}-{b}` a channel pair (e.g. `1-2`),
   `param.{key}` one root attribute per parameter of the run. Groups and attributes appear in
