@@ -303,13 +303,13 @@ impl<'a> Demuxer<'a> {
     }
 
     /// Suggest the other byte order when the time field read that way rises steadily
-    /// over the records of this block up to the failure (at most the last 4096).
+    /// over the records of this block around the failure (up to 2048 either side).
     fn with_swap_hint(&self, e: Error, bytes: &[u8], i: usize) -> Error {
         let t = self.layout.time;
         let other = Field { endian: t.endian.other(), ..t };
-        let start = i.saturating_sub(4095);
-        let recs = bytes.chunks_exact(self.layout.record_bytes).skip(start).take(i + 1 - start);
-        if i > start && looks_monotone(recs.map(|r| other.get(r))) {
+        let start = i.saturating_sub(2048);
+        let recs = bytes.chunks_exact(self.layout.record_bytes).skip(start).take(i + 2048 - start);
+        if looks_monotone(recs.map(|r| other.get(r))) {
             let try_spec = format!("time={}:{}:{}", t.offset_bytes, t.width_bytes, other.endian.short());
             return e.with_hint(format!("records look byte-swapped: try {try_spec}"));
         }
