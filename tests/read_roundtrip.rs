@@ -17,8 +17,11 @@ fn opts(mmap: bool) -> ReadOptions {
     ReadOptions { mmap, ..Default::default() }
 }
 
+/// (channel, times) per channel.
+type Tags = Vec<(u32, Vec<u64>)>;
+
 /// (channel, times) of everything `args` opens, via channels() and via concatenated chunks.
-fn read_both_ways(args: &[String], layout: Option<&RecordLayout>, mmap: bool, chunk: usize) -> (Vec<(u32, Vec<u64>)>, Vec<(u32, Vec<u64>)>) {
+fn read_both_ways(args: &[String], layout: Option<&RecordLayout>, mmap: bool, chunk: usize) -> (Tags, Tags) {
     let src = open_inputs(args, layout, opts(mmap)).unwrap();
     let mut whole: Vec<(u32, Vec<u64>)> = all_channels(&src).unwrap().iter().map(|c| (c.channel, c.times_ps.to_vec())).collect();
     whole.sort();

@@ -416,7 +416,7 @@ pub fn write_records(path: &Path, layout: &RecordLayout, channels: &[ChannelTags
     w.write_all(&vec![0u8; layout.header_bytes as usize]).map_err(io)?;
     let mut enc = RecordEncoder::new(layout, path);
     for (ps, ch) in merged(channels) {
-        w.write_all(&enc.encode(ps, ch)?).map_err(io)?;
+        w.write_all(enc.encode(ps, ch)?).map_err(io)?;
     }
     w.flush().map_err(io)?;
     drop(w);
