@@ -241,6 +241,8 @@ impl<'a> Demuxer<'a> {
     fn run<T: Uint, C: Uint>(&mut self, bytes: &[u8]) -> Result<()> {
         let (rec, t_off, c_off) = (self.layout.record_bytes, self.layout.time.offset_bytes, self.layout.channel.offset_bytes);
         let (fs, fast_ticks) = (self.layout.tick.fs, self.fast_ticks);
+        // 1 ps ticks (the common case) skip the multiply-divide; the test is loop-invariant.
+        let unit = fs == 1000;
         let mut slots = std::mem::take(&mut self.slots);
         let (mut prev, mut epoch) = (self.prev_raw, self.epoch_ticks);
         let mut outcome = Ok(());
@@ -258,7 +260,11 @@ impl<'a> Demuxer<'a> {
             prev = raw;
             let ticks = epoch.wrapping_add(raw);
             let ps = if ticks <= fast_ticks && ticks >= epoch {
-                (ticks * fs + 500) / 1000
+                if unit {
+                    ticks
+                } else {
+                    (ticks * fs + 500) / 1000
+                }
             } else {
                 match self.slow_ps(raw) {
                     ps if ps < MAX_PS => ps,
