@@ -28,7 +28,10 @@ fn read_both_ways(args: &[String], layout: Option<&RecordLayout>, mmap: bool, ch
     let mut joined: std::collections::BTreeMap<u32, Vec<u64>> = Default::default();
     for s in &src {
         for ch in s.chunks(chunk).unwrap() {
-            for c in ch.unwrap() {
+            let ch = ch.unwrap();
+            // Bounded memory: no chunk holds more than it was asked for.
+            assert!(ch.iter().map(|c| c.len()).sum::<usize>() <= chunk);
+            for c in ch {
                 joined.entry(c.channel).or_default().extend_from_slice(&c.times_ps);
             }
         }

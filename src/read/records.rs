@@ -81,7 +81,7 @@ impl TagSource for Records {
             d.feed(&self.block(first, n)?)?;
             first += n;
         }
-        Ok(d.take())
+        Ok(d.take(false))
     }
 
     fn chunks(&self, events_per_chunk: usize) -> Result<Box<dyn Iterator<Item = Result<Vec<ChannelTags<'static>>>> + Send + '_>> {
@@ -94,7 +94,7 @@ impl TagSource for Records {
                 return None;
             }
             let n = per.min(self.count - first);
-            let r = self.block(first, n).and_then(|b| d.feed(&b)).map(|()| d.take());
+            let r = self.block(first, n).and_then(|b| d.feed(&b)).map(|()| d.take(true));
             first += n;
             failed = r.is_err();
             Some(r)
@@ -199,13 +199,18 @@ impl<'a> Demuxer<'a> {
     }
 
     /// Per channel (ascending channel number) the events fed since the last `take`.
-    fn take(&mut self) -> Vec<ChannelTags<'static>> {
+    /// `refill`: give each channel a new vector as large as the one handed out (chunked
+    /// reading, where the next chunk has about as many events).
+    fn take(&mut self, refill: bool) -> Vec<ChannelTags<'static>> {
         let mut out: Vec<_> = self
             .slots
             .channels
             .iter()
             .zip(&mut self.slots.times)
-            .map(|(&c, v)| ChannelTags::owned(c, "", std::mem::take(v)))
+            .map(|(&c, v)| {
+                let next = if refill { Vec::with_capacity(v.len()) } else { Vec::new() };
+                ChannelTags::owned(c, "", std::mem::replace(v, next))
+            })
             .collect();
         out.sort_by_key(|c| c.channel);
         out
