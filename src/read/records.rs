@@ -248,11 +248,16 @@ impl<'a> Demuxer<'a> {
         let (fs, fast_ticks) = (self.layout.tick.fs, self.fast_ticks);
         // 1 ps ticks (the common case) skip the multiply-divide; the test is loop-invariant.
         let unit = fs == 1000;
+        // With a wrap of B bits only the low B bits of the time field are the counter.
+        let mask = match self.layout.wrap_bits {
+            Some(b) if b < 64 => (1u64 << b) - 1,
+            _ => u64::MAX,
+        };
         let mut slots = std::mem::take(&mut self.slots);
         let (mut prev, mut epoch) = (self.prev_raw, self.epoch_ticks);
         let mut outcome = Ok(());
         for (i, r) in bytes.chunks_exact(rec).enumerate() {
-            let raw = T::get(&r[t_off..]);
+            let raw = T::get(&r[t_off..]) & mask;
             let ch = C::get(&r[c_off..]);
             if raw < prev {
                 self.prev_raw = prev;
@@ -532,6 +537,22 @@ mod tests {
             assert!(tick.to_ps(t) < MAX_PS as u128 && (t as u128 * fs as u128 + 500) <= u64::MAX as u128, "{fs}");
             assert!(tick.to_ps(t + 1) >= MAX_PS as u128 || (t as u128 + 1) * fs as u128 + 500 > u64::MAX as u128, "{fs}");
         }
+    }
+
+    #[test]
+    fn bits_above_the_wrap_width_are_ignored() {
+        let d = tempfile::tempdir().unwrap();
+        let p = d.path().join("r.bin");
+        // 12-bit counter in a 4-byte field whose top bits carry flags: raw 0xF000_0FF0,
+        // then 0x0000_0010 (a wrap) → ticks 4080, 4096 + 16 = 4112.
+        let mut bytes = Vec::new();
+        for raw in [0xF000_0FF0u32, 0x0000_0010] {
+            bytes.extend_from_slice(&raw.to_le_bytes());
+            bytes.extend_from_slice(&[1, 0, 0, 0]);
+        }
+        std::fs::write(&p, &bytes).unwrap();
+        let r = Records::open(&p, layout("rec=8,time=0:4,chan=4:1,tick_ps=1,wrap=12"), ReadOptions::default()).unwrap();
+        assert_eq!(&*r.channels().unwrap()[0].times_ps, &[4080, 4112]);
     }
 
     #[test]
