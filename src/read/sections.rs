@@ -54,16 +54,26 @@ impl OrderChecker {
             let index = self.next_index + i as u64;
             let at = record_location(index, section_offset + 8 * index);
             if t >= MAX_PS {
-                return Err(Error::bad_input(map.path(), at, format!("timestamp {t} ps"), format!("below 2^62 = {MAX_PS} ps (about 53.4 days)")));
+                let e = Error::bad_input(map.path(), at, format!("timestamp {t} ps"), format!("below 2^62 = {MAX_PS} ps (about 53.4 days)"));
+                return Err(swap_hint(e, times, i));
             }
             if let Some(p) = prev.filter(|&p| t < p && !self.lenient) {
                 let e = Error::bad_input(map.path(), at, format!("timestamp {t} ps after {p} ps"), format!("≥ {p} ps (timestamps ascending)"));
-                let swapped = looks_monotone(times[..i + 1].iter().rev().take(4096).rev().map(|v| v.swap_bytes()));
-                return Err(if swapped { e.with_hint("values look byte-swapped: this reader expects little-endian u64") } else { e });
+                return Err(swap_hint(e, times, i));
             }
             prev = Some(t);
         }
         Ok(())
+    }
+}
+
+/// Add a hint when the values around the failure, byte-swapped, rise steadily.
+fn swap_hint(e: Error, times: &[u64], i: usize) -> Error {
+    let w = &times[i.saturating_sub(2048)..(i + 2048).min(times.len())];
+    if looks_monotone(w.iter().map(|v| v.swap_bytes())) {
+        e.with_hint("values look byte-swapped: this reader expects little-endian u64")
+    } else {
+        e
     }
 }
 
