@@ -16,9 +16,23 @@ pub fn count_window(a: &[u64], b: &[u64], shift_ps: i64, half_ps: u64) -> Window
 
 /// [`count_window`] with a chosen chunk length (tests use tiny chunks to hit chunk edges).
 pub fn count_window_chunked(a: &[u64], b: &[u64], shift_ps: i64, half_ps: u64, chunk_events: usize) -> WindowCount {
+    count_windows_chunked(a, b, &[shift_ps], half_ps, chunk_events)[0]
+}
+
+/// [`count_window`] at several shifts (peak and off-peak windows) in one pass over A and B.
+pub fn count_windows(a: &[u64], b: &[u64], shifts_ps: &[i64], half_ps: u64) -> Vec<WindowCount> {
+    count_windows_chunked(a, b, shifts_ps, half_ps, CHUNK_EVENTS)
+}
+
+/// [`count_windows`] with a chosen chunk length.
+pub fn count_windows_chunked(a: &[u64], b: &[u64], shifts_ps: &[i64], half_ps: u64, chunk_events: usize) -> Vec<WindowCount> {
+    let zero = || vec![WindowCount::default(); shifts_ps.len()];
     a.par_chunks(chunk_events.max(1))
-        .map(|chunk| kernels::count_window(chunk, b, shift_ps, half_ps))
-        .reduce(WindowCount::default, |x, y| x + y)
+        .fold(zero, |mut acc, chunk| {
+            kernels::count_windows(chunk, b, shifts_ps, half_ps, &mut acc);
+            acc
+        })
+        .reduce(zero, |x, y| x.into_iter().zip(y).map(|(p, q)| p + q).collect())
 }
 
 /// Delay histogram over [−span, span) in bins of `bin_ps`.

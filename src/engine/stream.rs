@@ -56,8 +56,9 @@ impl PairTask {
     fn run(&self, a: &[u64], b: &[u64], delta: i64, acc: &mut PairResult) {
         match (self, acc) {
             (PairTask::Count { centres_ps, half_ps }, PairResult::Count(v)) => {
-                for (c, slot) in centres_ps.iter().zip(v.iter_mut()) {
-                    *slot = *slot + parallel::count_window(a, b, delta + c, *half_ps);
+                let shifts: Vec<i64> = centres_ps.iter().map(|c| delta + c).collect();
+                for (slot, c) in v.iter_mut().zip(parallel::count_windows(a, b, &shifts, *half_ps)) {
+                    *slot = *slot + c;
                 }
             }
             (PairTask::Histogram { span_ps, bin_ps }, PairResult::Histogram(v)) => {

@@ -1,0 +1,110 @@
+#!/usr/bin/env bash
+# Whole-process engine benchmark: `tagsieve count` and `tagsieve scan` against the NumPy
+# scripts a lab would write (tools/numpy_count.py, tools/numpy_scan.py) and against a plain
+# sum over the same mapped files (examples/mem_read.rs), on one ≥ 1 GB two-channel input.
+#
+# Usage: tools/bench_engine.sh            (env: BENCH_DIR, REPS, PYTHON, NUMPY_PREFIX)
+# The simulated input is kept in BENCH_DIR for the next run (delete it by hand).
+# NUMPY_PREFIX=N times NumPy on the first N A events only and scales linearly (counts are
+# then not compared). Prints a table; see docs/benchmarks.md.
+set -euo pipefail
+
+cd "$(dirname "$0")/.."
+BENCH_DIR=${BENCH_DIR:-/tmp/tagsieve-bench}
+PYTHON=${PYTHON:-/work/main/.venv/bin/python}
+REPS=${REPS:-3}
+NUMPY_PREFIX=${NUMPY_PREFIX:-0}
+THREADS=2
+WINDOW_PS=1000        # w = 1 ns
+SPAN_PS=20000         # scan ±20 ns
+BIN_PS=50             # 50 ps bins
+DELTA_PS=41250        # d_3 − d_1 of the scenario (docs: /work/shared/scenario.md)
+
+cargo build --release --quiet --bin tagsieve --example mem_read
+TARGET=$(cargo metadata --format-version 1 --no-deps | "$PYTHON" -c 'import json,sys; print(json.load(sys.stdin)["target_directory"])')
+TS=$TARGET/release/tagsieve
+MEMREAD=$TARGET/release/examples/mem_read
+
+# Input: one block, channels 1 and 3 only (2 and 4 switched off), ≈ 1.17 GB for 40 s at
+# 20 M pairs/s. Kept between runs unless the files are missing.
+A=$BENCH_DIR/run/ab0_ch1.u64
+B=$BENCH_DIR/run/ab0_ch3.u64
+if [[ ! -s $A || ! -s $B ]]; then
+    echo "simulating the input into $BENCH_DIR/run ..." >&2
+    "$TS" simulate --out "$BENCH_DIR/run" --force -q --threads "$THREADS" --format arrays \
+        --series 22.5 --pair-rate-hz 20000000 --duration-s 40 \
+        --detector 2:efficiency=0,dark_rate_hz=0 --detector 4:efficiency=0,dark_rate_hz=0
+fi
+BYTES=$(( $(stat -c %s "$A") + $(stat -c %s "$B") ))
+(( BYTES >= 1000000000 )) || { echo "input is only $BYTES bytes (< 1 GB)" >&2; exit 1; }
+cat "$A" "$B" >/dev/null   # warm page cache: every figure below is from memory, not disk
+
+# best-of-REPS wall time of a command, seconds; its last stdout goes to $OUTFILE.
+OUTFILE=$(mktemp)
+trap 'rm -f "$OUTFILE"' EXIT
+best_of() {
+    local reps=$1; shift
+    local best=""
+    for ((i = 0; i < reps; i++)); do
+        local t0 t1
+        t0=$(date +%s.%N)
+        "$@" >"$OUTFILE"
+        t1=$(date +%s.%N)
+        best=$(awk -v a="$best" -v t="$(echo "$t1 - $t0" | bc)" 'BEGIN { print (a == "" || t < a) ? t : a }')
+    done
+    echo "$best"
+}
+numpy() { env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE "$PYTHON" "$@"; }
+
+echo "machine: $(nproc) cores, $(uptime | sed 's/.*load/load/')" >&2
+echo "input: $BYTES bytes ($A, $B)" >&2
+
+# (d) memory-read rate: best warm in-process pass and a fresh mapping's first touch.
+"$MEMREAD" "$THREADS" "$A" "$B" >"$OUTFILE"
+MEM_FIRST=$(awk '/first touch/ { for (i = 1; i <= NF; i++) if ($i ~ /^gb_per_s=/) { sub("gb_per_s=", "", $i); print $i } }' "$OUTFILE")
+MEM_WARM=$(awk '/warm/ { for (i = 1; i <= NF; i++) if ($i ~ /^gb_per_s=/) { sub("gb_per_s=", "", $i); if ($i > m) m = $i } } END { print m }' "$OUTFILE")
+T_CAT=$(best_of "$REPS" cat "$A" "$B")
+
+# (a) whole count process, (b) whole scan process.
+COUNT=("$TS" count -q --json --threads "$THREADS" --pairs 1:3 --delay 3=$DELTA_PS -w $WINDOW_PS "1=$A" "3=$B")
+T_COUNT1=$(best_of "$REPS" "${COUNT[@]}" --acc-offsets-ps 1000000)
+T_COUNT=$(best_of "$REPS" "${COUNT[@]}")
+TS_PAIRS=$("$PYTHON" -c 'import json,sys; r=json.load(open(sys.argv[1]))["blocks"][0]["coincidences"][0]; print(r["coincidences"], r["heralded"])' "$OUTFILE")
+SCAN=("$TS" scan -q --json --threads "$THREADS" --pairs 1:3 --delay 3=$DELTA_PS --span-ps $SPAN_PS --bin-ps $BIN_PS "1=$A" "3=$B")
+T_SCAN=$(best_of "$REPS" "${SCAN[@]}")
+TS_HIST=$("$PYTHON" -c 'import json,sys; d=json.load(open(sys.argv[1])); print(",".join(map(str, d["scans"][0]["counts"])))' "$OUTFILE")
+
+# (c) NumPy on the same files (once each: they take minutes).
+PREFIX_ARGS=()
+(( NUMPY_PREFIX > 0 )) && PREFIX_ARGS=(--prefix-events "$NUMPY_PREFIX")
+A_EVENTS=$(( $(stat -c %s "$A") / 8 ))
+T_NP_COUNT=$(best_of 1 numpy tools/numpy_count.py "1=$A" "3=$B" --window-ps $WINDOW_PS --delta-ps $DELTA_PS "${PREFIX_ARGS[@]}")
+NP_PAIRS=$(sed -n 's/^pairs=\([0-9]*\) heralded=\([0-9]*\).*/\1 \2/p' "$OUTFILE")
+T_NP_SCAN=$(best_of 1 numpy tools/numpy_scan.py "1=$A" "3=$B" --span-ps $SPAN_PS --bin-ps $BIN_PS --delta-ps $DELTA_PS "${PREFIX_ARGS[@]}")
+NP_HIST=$(sed -n 2p "$OUTFILE")
+if (( NUMPY_PREFIX > 0 )); then
+    SCALE=$(echo "$A_EVENTS / $NUMPY_PREFIX" | bc -l)
+    T_NP_COUNT=$(echo "$T_NP_COUNT * $SCALE" | bc -l)
+    T_NP_SCAN=$(echo "$T_NP_SCAN * $SCALE" | bc -l)
+    echo "NumPy timed on the first $NUMPY_PREFIX of $A_EVENTS A events and scaled linearly; counts not compared" >&2
+else
+    [[ $TS_PAIRS == "$NP_PAIRS" ]] || { echo "COUNT MISMATCH: tagsieve $TS_PAIRS, NumPy $NP_PAIRS" >&2; exit 1; }
+    [[ $TS_HIST == "$NP_HIST" ]] || { echo "SCAN MISMATCH between tagsieve and NumPy histograms" >&2; exit 1; }
+    echo "counts agree: pairs heralded = $TS_PAIRS; scan histograms equal ($(( (2 * SPAN_PS + BIN_PS - 1) / BIN_PS )) bins)" >&2
+fi
+
+row() {  # name seconds numpy_seconds
+    awk -v n="$1" -v t="$2" -v np="$3" -v b="$BYTES" -v m="$MEM_WARM" 'BEGIN {
+        g = b / t / 1e9
+        r = (np == "") ? "" : sprintf("%.1f", np / t)
+        printf "%-28s %9.3f %9.2f %10s %9.1f%%\n", n, t, g, r, 100 * g / m }'
+}
+printf '%-28s %9s %9s %10s %10s\n' "run ($THREADS threads)" "wall s" "GB/s" "× NumPy" "% mem-read"
+row "tagsieve count, 10 off-peak" "$T_COUNT" "$T_NP_COUNT"
+row "tagsieve count, 1 off-peak" "$T_COUNT1" "$T_NP_COUNT"
+row "tagsieve scan" "$T_SCAN" "$T_NP_SCAN"
+row "numpy_count.py" "$T_NP_COUNT" ""
+row "numpy_scan.py" "$T_NP_SCAN" ""
+row "cat (warm cache)" "$T_CAT" ""
+printf '%-28s %9s %9.2f %10s %9.1f%%\n' "mem_read sum, first touch" "" "$MEM_FIRST" "" "$(echo "100 * $MEM_FIRST / $MEM_WARM" | bc -l)"
+printf '%-28s %9s %9.2f %10s %9.1f%%\n' "mem_read sum, warm" "" "$MEM_WARM" "" 100
