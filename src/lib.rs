@@ -9,6 +9,8 @@
 pub mod analysis;
 pub mod engine;
 pub mod error;
+#[cfg(unix)]
+pub mod guard;
 pub mod manifest;
 pub mod output;
 pub mod pipeline;

@@ -1,6 +1,7 @@
 //! Atomic writes: every output is written to a temporary file in the target directory
 //! and renamed into place only when complete. Temporaries are removed on error, on drop
-//! and (through [`cleanup_all`]) from the Ctrl-C/SIGTERM handler.
+//! and (through [`cleanup_all`]) from the Ctrl-C/SIGTERM handler; each is also on the
+//! SIGBUS guard's lock-free list ([`crate::guard`]), which unlinks it from a signal handler.
 
 use crate::{Error, Result};
 use std::path::{Path, PathBuf};
@@ -15,6 +16,9 @@ pub struct AtomicOutput {
     final_path: PathBuf,
     temp_path: PathBuf,
     committed: bool,
+    /// Keeps the temporary on the SIGBUS handler's unlink list until commit or drop.
+    #[cfg(unix)]
+    _guard: crate::guard::TempToken,
 }
 
 impl AtomicOutput {
@@ -46,7 +50,13 @@ impl AtomicOutput {
             .map_err(|e| Error::io(final_path, e))?;
         let (_file, temp_path) = tmp.keep().map_err(|e| Error::io(final_path, e.error))?;
         PENDING.lock().unwrap_or_else(|p| p.into_inner()).push(temp_path.clone());
-        Ok(AtomicOutput { final_path: final_path.to_path_buf(), temp_path, committed: false })
+        Ok(AtomicOutput {
+            final_path: final_path.to_path_buf(),
+            #[cfg(unix)]
+            _guard: crate::guard::register_temp(&temp_path),
+            temp_path,
+            committed: false,
+        })
     }
 
     /// Where the writer puts its bytes.

@@ -16,6 +16,9 @@ pub struct Mapping {
     path: PathBuf,
     size_bytes: u64,
     mtime: Option<SystemTime>,
+    /// Keeps the mapped range on the SIGBUS guard's list (dropped before the map).
+    #[cfg(unix)]
+    _guard: Option<crate::guard::MapToken>,
     backing: Backing,
 }
 
@@ -45,27 +48,45 @@ impl Mapping {
     /// The caller promises that no process truncates, shrinks or rewrites the file while
     /// the mapping (or any slice borrowed from it) is alive. Truncation would make page
     /// accesses fault (SIGBUS); rewriting would change bytes we already validated. Appending
-    /// is harmless (we only look at the first `size_bytes` recorded here).
+    /// is harmless (we only look at the first `size_bytes` recorded here). The mapped range
+    /// is registered with [`crate::guard`], so when the CLI has installed its SIGBUS handler
+    /// a broken promise ends the process with a clear message and exit code 1, not a crash.
     pub unsafe fn open_mapped(path: &Path) -> Result<Self> {
         let (file, size_bytes, mtime) = open_regular(path)?;
         if size_bytes == 0 {
             // Zero-length mappings are an error on some systems; nothing to map anyway.
-            return Ok(Mapping { path: path.to_path_buf(), size_bytes, mtime, backing: Backing::Buffered(file) });
+            return Ok(Mapping::new(path, size_bytes, mtime, Backing::Buffered(file)));
         }
         // SAFETY: forwarded to our caller, see above.
         let map = match unsafe { Mmap::map(&file) } {
             Ok(m) => m,
-            Err(_) => return Ok(Mapping { path: path.to_path_buf(), size_bytes, mtime, backing: Backing::Buffered(file) }),
+            Err(_) => return Ok(Mapping::new(path, size_bytes, mtime, Backing::Buffered(file))),
         };
         #[cfg(unix)]
         let _ = map.advise(memmap2::Advice::Sequential);
-        Ok(Mapping { path: path.to_path_buf(), size_bytes, mtime, backing: Backing::Mapped(map) })
+        let mut m = Mapping::new(path, size_bytes, mtime, Backing::Mapped(map));
+        #[cfg(unix)]
+        if let Backing::Mapped(map) = &m.backing {
+            m._guard = Some(crate::guard::register_mapping(map.as_ptr(), map.len()));
+        }
+        Ok(m)
     }
 
     /// Open `path` for positioned buffered reads (no mapping; safe on files that change).
     pub fn open_buffered(path: &Path) -> Result<Self> {
         let (file, size_bytes, mtime) = open_regular(path)?;
-        Ok(Mapping { path: path.to_path_buf(), size_bytes, mtime, backing: Backing::Buffered(file) })
+        Ok(Mapping::new(path, size_bytes, mtime, Backing::Buffered(file)))
+    }
+
+    fn new(path: &Path, size_bytes: u64, mtime: Option<SystemTime>, backing: Backing) -> Self {
+        Mapping {
+            path: path.to_path_buf(),
+            size_bytes,
+            mtime,
+            #[cfg(unix)]
+            _guard: None,
+            backing,
+        }
     }
 
     pub fn path(&self) -> &Path {

@@ -156,6 +156,8 @@ struct Demuxer<'a> {
     next_index: u64,
     /// Largest tick count whose `ticks · tick_fs + 500` fits in u64 (fast path).
     fast_ticks: u64,
+    /// Largest raw counter the wrap allows (2^wrap_bits − 1; u64::MAX without a wrap).
+    max_raw: u64,
     new_slot_capacity: usize,
 }
 
@@ -173,6 +175,7 @@ impl<'a> Demuxer<'a> {
             epoch_ticks: 0,
             next_index: 0,
             fast_ticks: (u64::MAX - 500) / layout.tick.fs,
+            max_raw: layout.wrap_bits.and_then(|b| 1u64.checked_shl(b)).map_or(u64::MAX, |p| p - 1),
             new_slot_capacity: 1024,
         }
     }
@@ -230,8 +233,8 @@ impl<'a> Demuxer<'a> {
         for (i, r) in bytes.chunks_exact(rec).enumerate() {
             let raw = T::get(&r[t_off..]);
             let ch = C::get(&r[c_off..]);
-            if raw < self.prev_raw {
-                self.step_back(bytes, i, raw)?;
+            if raw < self.prev_raw || raw > self.max_raw {
+                self.unusual_raw(bytes, i, raw)?;
             }
             self.prev_raw = raw;
             let ticks = self.epoch_ticks.wrapping_add(raw);
@@ -259,6 +262,26 @@ impl<'a> Demuxer<'a> {
         let ticks = self.epoch_ticks as u128 + raw as u128;
         let ps = (ticks * self.layout.tick.fs as u128 + 500) / 1000;
         ps.min(MAX_PS as u128) as u64
+    }
+
+    /// A counter above the wrap period (the layout's wrap does not match the data) or a
+    /// step back (see [`Self::step_back`]).
+    #[cold]
+    fn unusual_raw(&mut self, bytes: &[u8], i: usize, raw: u64) -> Result<()> {
+        if raw <= self.max_raw {
+            return self.step_back(bytes, i, raw);
+        }
+        let (index, at) = self.location(i);
+        let bits = self.layout.wrap_bits.unwrap_or(64);
+        Err(Error::bad_input(
+            self.path,
+            record_location(index, at),
+            format!("time counter {raw} ticks, more than wrap={bits} allows"),
+            format!(
+                "a counter below 2^{bits} = {} (the layout's wrap does not match the data: give the counter's real width in bits, or leave wrap out)",
+                self.max_raw as u128 + 1
+            ),
+        ))
     }
 
     /// The raw counter went down: a wrap when the layout has one, else an error (strict)
@@ -303,13 +326,16 @@ impl<'a> Demuxer<'a> {
     }
 
     /// Suggest the other byte order when the time field read that way rises steadily
-    /// over the records of this block up to the failure (at most the last 4096).
+    /// over the records of this block around the failure (up to 4096 either side; a
+    /// big-endian 8-byte counter read as little-endian already fails at record 0).
     fn with_swap_hint(&self, e: Error, bytes: &[u8], i: usize) -> Error {
         let t = self.layout.time;
         let other = Field { endian: t.endian.other(), ..t };
         let start = i.saturating_sub(4095);
-        let recs = bytes.chunks_exact(self.layout.record_bytes).skip(start).take(i + 1 - start);
-        if i > start && looks_monotone(recs.map(|r| other.get(r))) {
+        let n = bytes.len() / self.layout.record_bytes;
+        let end = n.min(i + 4096);
+        let recs = bytes.chunks_exact(self.layout.record_bytes).skip(start).take(end - start);
+        if end - start > 1 && looks_monotone(recs.map(|r| other.get(r))) {
             let try_spec = format!("time={}:{}:{}", t.offset_bytes, t.width_bytes, other.endian.short());
             return e.with_hint(format!("records look byte-swapped: try {try_spec}"));
         }
