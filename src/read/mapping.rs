@@ -125,7 +125,7 @@ impl Mapping {
             Backing::Mapped(m) => Ok(Cow::Borrowed(&m[offset as usize..end as usize])),
             Backing::Buffered(f) => {
                 let mut buf = vec![0u8; len];
-                read_exact_at(f, &mut buf, offset).map_err(|e| Error::io(&self.path, e))?;
+                read_exact_at(f, &mut buf, offset).map_err(|e| self.read_error(e))?;
                 Ok(Cow::Owned(buf))
             }
         }
@@ -141,6 +141,15 @@ impl Mapping {
         }
     }
 
+    /// A short read inside the size recorded at open means the file shrank underneath us.
+    fn read_error(&self, e: std::io::Error) -> Error {
+        if e.kind() != std::io::ErrorKind::UnexpectedEof {
+            return Error::io(&self.path, e);
+        }
+        let after = std::fs::metadata(&self.path).map_or(0, |m| m.len());
+        Error::ChangedUnderneath { path: self.path.clone(), before: self.size_bytes, after }
+    }
+
     /// Compare the file's size and modification time with those recorded at open.
     pub fn check_unchanged(&self) -> Result<()> {
         let meta = std::fs::metadata(&self.path).map_err(|e| Error::io(&self.path, e))?;
@@ -153,14 +162,31 @@ impl Mapping {
 }
 
 /// Open a regular file, refusing directories and other non-files with a clear error.
+/// The type is checked with stat before opening: opening a FIFO would block until a
+/// writer appears.
 fn open_regular(path: &Path) -> Result<(File, u64, Option<SystemTime>)> {
-    let file = File::open(path).map_err(|e| Error::io(path, e))?;
-    let meta = file.metadata().map_err(|e| Error::io(path, e))?;
+    let meta = std::fs::metadata(path).map_err(|e| open_error(path, e))?;
     if meta.is_dir() {
         let e = std::io::Error::new(std::io::ErrorKind::IsADirectory, "is a directory, expected a tag file");
         return Err(Error::io(path, e));
     }
+    if !meta.is_file() {
+        let what = "is not a regular file (a FIFO, socket or device), expected a tag file; copy the data into a file first";
+        return Err(Error::io(path, std::io::Error::new(std::io::ErrorKind::InvalidInput, what)));
+    }
+    let file = File::open(path).map_err(|e| open_error(path, e))?;
+    let meta = file.metadata().map_err(|e| Error::io(path, e))?;
     Ok((file, meta.len(), meta.modified().ok()))
+}
+
+/// Say what was expected for the two common failures; keep the OS text otherwise.
+fn open_error(path: &Path, e: std::io::Error) -> Error {
+    let text = match e.kind() {
+        std::io::ErrorKind::NotFound => "no such file, expected an existing tag file",
+        std::io::ErrorKind::PermissionDenied => "permission denied, expected a file this user may read",
+        _ => return Error::io(path, e),
+    };
+    Error::io(path, std::io::Error::new(e.kind(), text))
 }
 
 #[cfg(unix)]
