@@ -498,7 +498,7 @@ fn truncate_while_inspecting(extra: &[&str], n: u64, what: &str, new_len: u64) -
     let d = tempfile::tempdir_in(base).unwrap();
     let p = d.path().join("big.u64");
     write_ramp(&p, n);
-    let mut child = common::tagsieve()
+    let child = common::tagsieve()
         .args(["inspect", "-q"])
         .args(extra)
         .arg(format!("1={}", p.display()))
