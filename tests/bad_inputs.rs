@@ -469,11 +469,44 @@ fn full_disk_during_the_write() {
 /// truncated to 0 once the mapping shows in /proc/PID/maps: page accesses then fault.
 #[test]
 fn input_truncated_while_mapped_exits_1_with_a_message() {
-    let (out, seen) = truncate_while_inspecting(&[], 50_000_000, "maps", 0);
+    let run = Truncation::new(50_000_000);
+    let (out, seen) = run.cut_when(&["inspect", "-q"], Ready::Mapped, 0);
     assert!(seen, "the mapping never appeared in /proc/PID/maps");
+    expect_changed_exit(&out);
+}
+
+/// The same during `import`, once its first temporary (a per-channel spill) exists: the
+/// SIGBUS handler must unlink it, so nothing is left beside the output.
+#[test]
+fn import_truncated_while_mapped_leaves_no_temporary() {
+    let run = Truncation::new(50_000_000);
+    let out_dir = run.dir.path().join("out");
+    std::fs::create_dir(&out_dir).unwrap();
+    let dest = out_dir.join("x.sieve");
+    let dest = dest.to_str().unwrap();
+    let (out, seen) = run.cut_when(&["import", "-q", "-o", dest], Ready::TempIn(&out_dir), 0);
+    assert!(seen, "no temporary output ever appeared in {}", out_dir.display());
+    expect_changed_exit(&out);
+    let left: Vec<_> = std::fs::read_dir(&out_dir).unwrap().map(|e| e.unwrap().file_name()).collect();
+    assert!(left.is_empty(), "left behind: {left:?}");
+}
+
+/// With --no-mmap a shrinking file shows as a short read or a size check: exit 1, named.
+#[test]
+fn input_truncated_while_read_buffered_exits_1() {
+    let run = Truncation::new(25_000_000);
+    let (out, seen) = run.cut_when(&["inspect", "-q", "--no-mmap"], Ready::Open, 8000);
+    assert!(seen, "the file never appeared among the open files");
+    let err = expect(&out, 1, &["big.u64", "file changed while it was read", "with --no-mmap"]);
+    assert!(err.contains("before") && err.contains("8000 after"), "{err}");
+}
+
+/// Exit code 1 with one of the two changed-file messages; not a signal death
+/// (`code()` is `None` when a signal ended the process) and no panic.
+#[track_caller]
+fn expect_changed_exit(out: &Output) {
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(!err.contains("panicked"), "{err}");
-    // Exit code 1, not a signal death (code() is None when a signal ended the process).
     assert_eq!(out.status.code(), Some(1), "{:?}: {err}", out.status);
     assert!(
         err.contains("input file changed size while mapped; rerun on a stable copy or with --no-mmap")
@@ -482,33 +515,63 @@ fn input_truncated_while_mapped_exits_1_with_a_message() {
     );
 }
 
-/// With --no-mmap a shrinking file shows as a short read or a size check: exit 1, named.
-#[test]
-fn input_truncated_while_read_buffered_exits_1() {
-    let (out, seen) = truncate_while_inspecting(&["--no-mmap"], 25_000_000, "fd", 8000);
-    assert!(seen, "the file never appeared among the open files");
-    let err = expect(&out, 1, &["big.u64", "file changed while it was read", "with --no-mmap"]);
-    assert!(err.contains("before") && err.contains("8000 after"), "{err}");
+/// When to cut the input: once it is mapped, once it is open, or once a `.partial`
+/// temporary shows in a directory.
+enum Ready<'a> {
+    Mapped,
+    Open,
+    TempIn(&'a Path),
 }
 
-/// Start `inspect` on a file of `n` timestamps, wait until /proc shows it (`what`: "maps"
-/// or "fd"), cut the file to `new_len` bytes and collect the output; also whether it showed.
-fn truncate_while_inspecting(extra: &[&str], n: u64, what: &str, new_len: u64) -> (Output, bool) {
-    let base = if Path::new("/dev/shm").is_dir() { PathBuf::from("/dev/shm") } else { std::env::temp_dir() };
-    let d = tempfile::tempdir_in(base).unwrap();
-    let p = d.path().join("big.u64");
-    write_ramp(&p, n);
-    let child = common::tagsieve()
-        .args(["inspect", "-q"])
-        .args(extra)
-        .arg(format!("1={}", p.display()))
-        .stdout(std::process::Stdio::null())
-        .stderr(std::process::Stdio::piped())
-        .spawn()
-        .unwrap();
-    let seen = wait_for(child.id(), what, &p);
-    std::fs::OpenOptions::new().write(true).open(&p).unwrap().set_len(new_len).unwrap();
-    (child.wait_with_output().unwrap(), seen)
+/// A large per-channel input on tmpfs (else the temp dir) to cut while a command reads it.
+struct Truncation {
+    dir: tempfile::TempDir,
+    input: PathBuf,
+}
+
+impl Truncation {
+    fn new(n: u64) -> Self {
+        let base = if Path::new("/dev/shm").is_dir() { PathBuf::from("/dev/shm") } else { std::env::temp_dir() };
+        let dir = tempfile::tempdir_in(base).unwrap();
+        let input = dir.path().join("big.u64");
+        write_ramp(&input, n);
+        Truncation { dir, input }
+    }
+
+    /// Run `args` + `1=INPUT`, wait for `ready`, cut the input to `new_len` bytes; the
+    /// output and whether `ready` was seen (within about 5 s).
+    fn cut_when(&self, args: &[&str], ready: Ready, new_len: u64) -> (Output, bool) {
+        let child = common::tagsieve()
+            .args(args)
+            .arg(format!("1={}", self.input.display()))
+            .stdout(std::process::Stdio::null())
+            .stderr(std::process::Stdio::piped())
+            .spawn()
+            .unwrap();
+        let seen = self.wait_for(child.id(), &ready);
+        std::fs::OpenOptions::new().write(true).open(&self.input).unwrap().set_len(new_len).unwrap();
+        (child.wait_with_output().unwrap(), seen)
+    }
+
+    fn wait_for(&self, pid: u32, ready: &Ready) -> bool {
+        let name = self.input.to_string_lossy().into_owned();
+        let until = std::time::Instant::now() + std::time::Duration::from_secs(5);
+        while std::time::Instant::now() < until {
+            let found = match ready {
+                Ready::Mapped => std::fs::read_to_string(format!("/proc/{pid}/maps")).is_ok_and(|m| m.contains(&name)),
+                Ready::Open => std::fs::read_dir(format!("/proc/{pid}/fd")).is_ok_and(|mut it| {
+                    it.any(|e| e.is_ok_and(|e| std::fs::read_link(e.path()).is_ok_and(|l| l == self.input)))
+                }),
+                Ready::TempIn(d) => std::fs::read_dir(d)
+                    .is_ok_and(|mut it| it.any(|e| e.is_ok_and(|e| e.file_name().to_string_lossy().ends_with(".partial")))),
+            };
+            if found {
+                return true;
+            }
+            std::thread::sleep(std::time::Duration::from_micros(20));
+        }
+        false
+    }
 }
 
 /// `n` ascending u64 values, written in 8 MB pieces.
@@ -521,22 +584,4 @@ fn write_ramp(p: &Path, n: u64) {
         f.write_all(&buf).unwrap();
     }
     f.flush().unwrap();
-}
-
-/// Poll /proc/PID/maps (or the fd links) until `path` shows up; false after about 5 s.
-fn wait_for(pid: u32, what: &str, path: &Path) -> bool {
-    let name = path.to_string_lossy().into_owned();
-    for _ in 0..500_000 {
-        let found = match what {
-            "maps" => std::fs::read_to_string(format!("/proc/{pid}/maps")).is_ok_and(|m| m.contains(&name)),
-            _ => std::fs::read_dir(format!("/proc/{pid}/fd")).is_ok_and(|mut it| {
-                it.any(|e| e.is_ok_and(|e| std::fs::read_link(e.path()).is_ok_and(|l| l == path)))
-            }),
-        };
-        if found {
-            return true;
-        }
-        std::thread::sleep(std::time::Duration::from_micros(10));
-    }
-    false
 }
