@@ -7,6 +7,7 @@
 //! No module reaches back upstream.
 
 pub mod analysis;
+pub mod demo;
 pub mod engine;
 pub mod error;
 #[cfg(unix)]

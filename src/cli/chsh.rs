@@ -190,8 +190,8 @@ fn print(o: &ChshOutcome, g: &Global) {
                 _ => "",
             };
             println!(
-                "  S = {:<38} {:<20} {:+.4} ± {:.4}  {:+.1} σ beyond 2, p = {:.3e}{flag}",
-                v.formula, v.kind, v.variant.s, v.variant.sigma, v.variant.violation_sigma, v.variant.p_value
+                "  S = {:<38} {:<20} {:+.4} ± {:.4}  {:+.1} σ beyond 2, p {}{flag}",
+                v.formula, v.kind, v.variant.s, v.variant.sigma, v.variant.violation_sigma, p_text(v.variant.p_value)
             );
         }
         println!("  caution: {}", layout_analysis::CAUTION);
@@ -208,6 +208,11 @@ fn print(o: &ChshOutcome, g: &Global) {
             a, r.lhs, r.rhs, r.margin.value, r.margin.sigma, r.violation_sigma
         );
     }
+}
+
+/// "= 1.2e-5", or "< 1e-300" where the normal tail underflows.
+fn p_text(p: f64) -> String {
+    if p > 0.0 { format!("= {p:.3e}") } else { "< 1e-300".into() }
 }
 
 fn json(o: &ChshOutcome) -> serde_json::Value {

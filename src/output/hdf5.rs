@@ -28,6 +28,10 @@ impl Writer for Hdf5Writer {
         builder.with_fcpl(|p| {
             p.link_creation_order(LinkCreationOrder::Indexed).attr_creation_order(AttrCreationOrder::Indexed)
         });
+        // The temporary is ours alone until it is renamed, so HDF5's flock adds nothing;
+        // without it a child process that inherits the descriptor cannot keep the file
+        // locked after we close it, and file systems without flock still work.
+        builder.with_fapl(|p| p.file_locking(false));
         let file = builder.create(dest).map_err(ctx.err("create file"))?;
         ctx.write_group_contents(&file, &doc.root, "/")?;
         file.flush().map_err(ctx.err("flush"))?;
@@ -74,7 +78,19 @@ impl Ctx<'_> {
         Ok(())
     }
 
+    /// A name with '/' would silently become a path; an empty one cannot be stored.
+    fn check_name(&self, name: &str, at: &str) -> Result<()> {
+        if name.is_empty() || name == "." || name.contains('/') {
+            return Err(Error::Output {
+                path: self.path.to_path_buf(),
+                message: format!("{at}: name {name:?} cannot be an HDF5 link name (must be non-empty, not \".\", without '/')"),
+            });
+        }
+        Ok(())
+    }
+
     fn create_group(&self, parent: &h5::Group, name: &str, at: &str) -> Result<h5::Group> {
+        self.check_name(name, at)?;
         parent
             .create_group_builder()
             .with_gcpl(|p| {
@@ -96,6 +112,7 @@ impl Ctx<'_> {
     }
 
     fn write_column(&self, g: &h5::Group, c: &Column, at: &str) -> Result<()> {
+        self.check_name(&c.name, at)?;
         let ds = match &c.data {
             ColumnData::U64(v) => create_dataset(g, &c.name, v),
             ColumnData::I64(v) => create_dataset(g, &c.name, v),
@@ -258,6 +275,15 @@ mod tests {
         let doc = doc_with(10);
         Hdf5Writer.write(&doc, &p).unwrap();
         assert_eq!(read_document(&p).unwrap(), doc);
+    }
+
+    #[test]
+    fn slash_in_a_block_label_is_an_error() {
+        let d = tempfile::tempdir().unwrap();
+        let mut doc = doc_with(1);
+        doc.root.groups.push(Group::new("a/b"));
+        let e = Hdf5Writer.write(&doc, &d.path().join("x.h5")).unwrap_err();
+        assert!(e.to_string().contains("\"a/b\""), "{e}");
     }
 
     #[test]

@@ -28,7 +28,13 @@ impl Writer for JsonWriter {
 
 /// Write `doc` as JSON to any byte sink (a file, stdout, a Vec).
 pub fn write_to(doc: &Document, out: &mut dyn Write) -> Result<()> {
-    let to_err = |e: serde_json::Error| Error::Output { path: "<json>".into(), message: e.to_string() };
+    let to_err = |e: serde_json::Error| {
+        if e.is_io() {
+            Error::io("<json>", e.into())
+        } else {
+            Error::Output { path: "<json>".into(), message: e.to_string() }
+        }
+    };
     serde_json::to_writer(&mut *out, &JGroup(&doc.root)).map_err(to_err)?;
     out.write_all(b"\n").map_err(|e| Error::io("<json>", e))
 }

@@ -194,6 +194,8 @@ pub struct LayoutEntry {
     pub unit: String,
     /// Datasets only: what one element of the 1-D dataset is.
     pub rows: String,
+    /// What the value means (documentation only).
+    pub note: String,
 }
 
 /// A sample run with one block and one pair of each kind; names that vary per run are
@@ -206,7 +208,41 @@ pub fn sample_document() -> Document {
     prov.inputs.push(super::provenance::InputRecord { path: "{input}".into(), size_bytes: 0, xxh3: "{xxh3}".into() });
     let mut doc = run_document(&[sample_block()], &prov);
     rename_pairs(&mut doc.root);
+    doc.root.groups.extend(sample_analysis_groups());
     doc
+}
+
+/// `/chsh`, `/visibility` and `/bell3` as `tagsieve chsh` adds them (see
+/// [`super::layout_analysis`]), built from fixed sample counts.
+fn sample_analysis_groups() -> Vec<Group> {
+    use super::layout_analysis::{bell3_group, chsh_group, visibility_group};
+    use crate::analysis::{bell3, chsh, visibility};
+    let one = Estimate { value: 1.0, sigma: 1.0 };
+    let setting = |label_a: &str, label_b: &str, angle_a_deg: f64, angle_b_deg: f64| chsh::SettingCounts {
+        label_a: label_a.into(),
+        label_b: label_b.into(),
+        angle_a_deg,
+        angle_b_deg,
+        counts: [40, 10, 10, 40],
+        accidentals: Some([one; 4]),
+        live_time_s: None,
+    };
+    let settings = [setting("a", "b", 0.0, 22.5), setting("a", "b'", 0.0, 67.5), setting("a'", "b", 45.0, 22.5), setting("a'", "b'", 45.0, 67.5)];
+    let mut groups = Vec::new();
+    if let Ok(report) = chsh::evaluate(&settings) {
+        groups.push(chsh_group(&report));
+    }
+    let points: Vec<visibility::AnglePoint> =
+        [0.0, 45.0, 90.0, 135.0].iter().zip([90, 50, 10, 50]).map(|(&angle_deg, counts)| visibility::AnglePoint { angle_deg, counts }).collect();
+    if let Ok(fit) = visibility::fit_visibility("basis", &points) {
+        let mut g = visibility_group(&[(fit, points)]);
+        for t in g.tables.iter_mut().filter(|t| t.name.starts_with("points_")) {
+            t.name = "points_{basis}".into();
+        }
+        groups.push(g);
+    }
+    groups.push(bell3_group(&bell3::evaluate(one, one, one, bell3::Convention::AntiCorrelated), [0.0, 22.5, 45.0]));
+    groups
 }
 
 fn rename_pairs(g: &mut Group) {
@@ -256,7 +292,8 @@ pub fn layout_entries(doc: &Document) -> Vec<LayoutEntry> {
 }
 
 fn entry(kind: EntryKind, path: String, dtype: &str) -> LayoutEntry {
-    LayoutEntry { kind, path, dtype: dtype.into(), unit: String::new(), rows: String::new() }
+    let note = note_for(kind, &path).into();
+    LayoutEntry { kind, path, dtype: dtype.into(), unit: String::new(), rows: String::new(), note }
 }
 
 fn push_attrs(path: &str, attrs: &[(String, AttrValue)], out: &mut Vec<LayoutEntry>) {
@@ -301,32 +338,148 @@ fn rows_meaning(table_path: &str, column: &str) -> &'static str {
         ("singles", _) | ("delays", _) => "channels",
         ("coincidences", _) => "channel pairs",
         ("off_peak_windows", _) => "channel pairs × off-peak windows",
+        ("correlations", _) => "setting pairs",
+        ("s_values", _) => "S variants × (raw, corrected)",
+        ("fits", _) => "bases",
+        ("points_{basis}", _) => "angles measured",
         _ => "rows",
+    }
+}
+
+/// The meaning of a group, attribute or column, by its name and where it sits.
+fn note_for(kind: EntryKind, path: &str) -> &'static str {
+    let (parent, name) = path.rsplit_once(['/', '@']).unwrap_or(("", path));
+    if ["/chsh", "/visibility", "/bell3"].iter().any(|g| path.starts_with(g)) {
+        return analysis_note(path, name);
+    }
+    let in_scan = parent.contains("/scans/");
+    match name {
+        "" => "root: provenance attributes",
+        "provenance" => "where the data came from",
+        "inputs" => "every input file as read",
+        "blocks" => "one group per block (setting pair or input set)",
+        "{label}" => "one block",
+        "singles" => "per-channel singles of the block",
+        "delays" => "per-channel delay d applied before pairing",
+        "coincidences" if kind == EntryKind::Group => "one row per channel pair at the block's window",
+        "off_peak_windows" => "raw counts behind acc_measured",
+        "scans" => "delay histograms, one table per pair",
+        "sweeps" => "window sweeps, one table per pair",
+        "{a}-{b}" if in_scan || parent.ends_with("scans") => "histogram of Δ; fitted peak as attributes",
+        "{a}-{b}" => "one row per window swept",
+        "tool" | "tool_version" => "program and version that wrote the file",
+        "command_line" => "full command line, shell-quoted",
+        "created_utc" => "creation time, ISO 8601 UTC",
+        "param.{key}" => "one attribute per run parameter (type follows the value)",
+        "layout_version" => "version of this layout",
+        "checksum" => "checksum algorithm of the xxh3 column",
+        "path" => "input path as given",
+        "size_bytes" => "file size when read",
+        "xxh3" => "XXH3-64 of the file bytes (seed 0), 16 hex digits",
+        "label" => "block label",
+        "window_ps" => "coincidence window w: pairs with 2·abs(Δ) ≤ w count",
+        "span_start_ps" | "span_end_ps" => "acquisition span [start, end) over all channels",
+        "span_s" => "span length",
+        "channel" | "a" | "b" => "channel number",
+        "name" => "channel name",
+        "events" => "time tags in the block",
+        "first_ps" | "last_ps" => "first and last time tag",
+        "live_time_s" => "live time (the block span)",
+        "rate_hz" => "events / live time",
+        "delay_ps" => "delay d of the channel",
+        "rel_delay_ps" => "d_B − d_A",
+        "coincidences" => "pairs with 2·abs(Δ) ≤ w",
+        "heralded" => "A events with at least one partner",
+        "acc_analytic" | "acc_analytic_sigma" => "accidentals from singles rates, ±1σ",
+        "acc_measured" | "acc_measured_sigma" => "mean of the off-peak windows, ±1σ",
+        "net" | "net_sigma" => "coincidences − acc_analytic, ±1σ",
+        "car" => "coincidences / acc_analytic (NaN when 0)",
+        "acc_agreement_sigma" => "(acc_analytic − acc_measured) / combined σ",
+        "offset_ps" => "offset of the off-peak window from the peak",
+        "counts" if in_scan => "counts per bin",
+        "counts" => "pairs in the off-peak window",
+        "bin_edges_ps" => "bin i covers [edge i, edge i+1) of Δ",
+        "span_ps" | "bin_ps" => "histogram half-span and bin width",
+        "peak_found" => "1 when the peak fit succeeded",
+        "peak_delay_ps" | "peak_delay_sigma_ps" => "peak centre in Δ, ±1σ",
+        "peak_fwhm_ps" => "full width at half maximum",
+        "peak_height" | "peak_background" => "peak height and flat background, counts per bin",
+        "peak_net_counts" => "background-subtracted counts in the peak",
+        "recommended_window_ps" => "window chosen by the criterion",
+        "criterion" => "how the window was chosen",
+        _ => "",
+    }
+}
+
+/// Meanings under `/chsh`, `/visibility` and `/bell3` (definitions in src/analysis).
+fn analysis_note(path: &str, name: &str) -> &'static str {
+    let chsh = path.starts_with("/chsh");
+    match name {
+        "chsh" => "CHSH S from four setting pairs (primary convention S = E(a,b) − E(a,b') + E(a',b) + E(a',b'))",
+        "s_raw" | "s_raw_sigma" => "primary S from raw counts, ±1σ",
+        "violation_raw_sigma" => "(abs(S) − 2)/σ of the raw primary S",
+        "p_value_raw" => "one-sided normal p-value of violation_raw_sigma",
+        "from_rates" => "1 when E was formed from rates (per-run live times)",
+        "caution" => "what the p-values assume",
+        "s_corrected" | "s_corrected_sigma" => "primary S after subtracting accidentals, ±1σ (only with accidental estimates)",
+        "correlations" => "one row per setting pair: ab, ab', a'b, a'b'",
+        "setting_pair" => "setting pair label",
+        "angle_a_deg" | "angle_b_deg" => "analyzer angles of the two sides",
+        "n_pp" | "n_pm" | "n_mp" | "n_mm" => "coincidences per outcome ++, +−, −+, −−",
+        "e_raw" | "e_raw_sigma" => "correlation E from raw counts, ±1σ",
+        "e_corrected" | "e_corrected_sigma" => "E after subtracting accidentals, ±1σ (NaN without estimates)",
+        "s_values" => "the four sign variants of S, raw and corrected",
+        "kind" => "raw or accidental-corrected",
+        "formula" => "which term carries the minus sign",
+        "s" | "s_sigma" => "S of the variant, ±1σ",
+        "violation_sigma" if chsh => "(abs(S) − 2)/σ",
+        "p_value" if chsh => "one-sided normal p-value of violation_sigma",
+        "is_primary" => "1 for the primary convention",
+        "is_max" => "1 for the variant with the largest abs(S) (a look-elsewhere choice)",
+        "visibility" if path == "/visibility" => "fringe fits N(θ) = A + B cos 2θ + C sin 2θ per basis",
+        "fits" => "one row per basis",
+        "basis" => "basis or pair name",
+        "amplitude" | "amplitude_sigma" => "mean count A, ±1σ",
+        "visibility" | "visibility_sigma" => "fringe visibility, ±1σ",
+        "theta0_deg" | "theta0_sigma_deg" => "fringe phase θ0 in (−90°, 90°], ±1σ",
+        "reduced_chi2" => "χ²/dof of the fit (NaN when dof = 0)",
+        "points_{basis}" => "the measured points of one basis",
+        "angle_deg" => "analyzer angle",
+        "counts" => "coincidences at the angle",
+        "bell3" => "three-setting form abs(E(a,b) − E(a,c)) ≤ 1 + E(b,c)",
+        "convention" => "AntiCorrelated applies the form to E; Correlated to −E",
+        "angles_deg" => "the three settings a, b, c",
+        "e_ab" | "e_ac" | "e_bc" => "measured correlations before any sign flip",
+        "lhs" | "rhs" => "the two sides of the form",
+        "margin" | "margin_sigma" => "lhs − rhs, ±1σ; > 0 is a violation",
+        "violation_sigma" => "margin / σ",
+        "p_value" => "one-sided normal p-value of violation_sigma",
+        _ => "",
     }
 }
 
 /// docs/hdf5-layout.md: every group, attribute and dataset with dtype, shape and unit.
 pub fn describe_layout() -> String {
     let entries = layout_entries(&sample_document());
-    let mut md = String::from(LAYOUT_PREAMBLE.replace("{LAYOUT_VERSION}", &LAYOUT_VERSION.to_string()));
-    md.push_str("\n## Groups and their attributes\n\n| group | attribute | type |\n|---|---|---|\n");
+    let mut md = LAYOUT_PREAMBLE.replace("{LAYOUT_VERSION}", &LAYOUT_VERSION.to_string());
+    md.push_str("\n## Groups and their attributes\n\n| group | attribute | type | meaning |\n|---|---|---|---|\n");
     let mut current = String::new();
     for e in &entries {
         match e.kind {
             EntryKind::Group => {
                 current = e.path.clone();
-                md.push_str(&format!("| `{}` | | |\n", e.path));
+                md.push_str(&format!("| `{}` | | | {} |\n", e.path, e.note));
             }
             EntryKind::Attribute => {
                 let name = e.path.strip_prefix(&format!("{current}@")).unwrap_or(&e.path);
-                md.push_str(&format!("| | `{name}` | {} |\n", e.dtype));
+                md.push_str(&format!("| | `{name}` | {} | {} |\n", e.dtype, e.note));
             }
             EntryKind::Dataset => {}
         }
     }
-    md.push_str("\n## Datasets (each 1-D, with a string attribute `units`)\n\n| dataset | type | shape | units |\n|---|---|---|---|\n");
+    md.push_str("\n## Datasets (each 1-D, with a string attribute `units`)\n\n| dataset | type | shape | units | meaning |\n|---|---|---|---|---|\n");
     for e in entries.iter().filter(|e| e.kind == EntryKind::Dataset) {
-        md.push_str(&format!("| `{}` | {} | ({}) | {} |\n", e.path, e.dtype, e.rows, unit_text(&e.unit)));
+        md.push_str(&format!("| `{}` | {} | ({}) | {} | {} |\n", e.path, e.dtype, e.rows, unit_text(&e.unit), e.note));
     }
     md
 }
@@ -348,10 +501,10 @@ Layout version {LAYOUT_VERSION} (root attribute `layout_version`).
 
 - A **table** is a group holding one 1-D dataset per column, all of one length except a
   histogram's `bin_edges_ps` (one more than `counts`). Every dataset has a string attribute
-  `units`: `ps`, `s`, `Hz`, `counts`, `bytes`, `1` (dimensionless) or `\"\"` (a label or index).
+  `units`: `ps`, `s`, `Hz`, `counts`, `bytes`, `deg`, `1` (dimensionless) or `\"\"` (a label or index).
 - Types: `u64`/`i64` little-endian integers, `f64` IEEE doubles, `string` variable-length UTF-8.
   Times inside the engine are integer picoseconds; only derived quantities are floats.
-- Datasets longer than 4096 elements are chunked (65536 elements), shuffled and
+- Datasets longer than 4096 elements are chunked (up to 65536 elements a chunk), shuffled and
   deflate-compressed (level 4); shorter ones are contiguous.
 - Placeholders: `{label}` is a block label, `{a}-{b}` a channel pair (e.g. `1-2`),
   `param.{key}` one root attribute per parameter of the run. Groups and attributes appear in
@@ -361,8 +514,8 @@ Layout version {LAYOUT_VERSION} (root attribute `layout_version`).
   `rel_delay_ps` is d_B − d_A.
 - Provenance: the root attributes name the tool, version, full command line and UTC creation
   time; `/provenance/inputs` lists every input file with its size and XXH3-64 checksum.
-- Other stages add groups beside `/blocks` (for example `/chsh`); they are documented with
-  the stage that writes them.
+- `tagsieve chsh` adds `/chsh`, `/visibility` and `/bell3` beside `/blocks` (documented
+  below from a sample); `points_{basis}` is one table per fitted basis.
 - CSV output holds the same tree: `# group /path` and `# table /path` comment lines,
   attributes as `# key = value`, a header of `name [unit]` cells. JSON output nests
   `{\"attrs\", \"tables\", \"groups\"}` objects; a table is `{\"attrs\", \"columns\"}` and a column
@@ -377,7 +530,7 @@ mod tests {
     fn every_column_has_a_known_unit_and_equal_lengths() {
         let doc = sample_document();
         // Units of the trade (common practice, no source) plus "" for labels.
-        let known = ["ps", "s", "Hz", "counts", "1", "bytes", ""];
+        let known = ["ps", "s", "Hz", "counts", "1", "bytes", "deg", ""];
         for e in layout_entries(&doc).iter().filter(|e| e.kind == EntryKind::Dataset) {
             assert!(known.contains(&e.unit.as_str()), "{} has unit {:?}", e.path, e.unit);
         }
@@ -389,6 +542,15 @@ mod tests {
         }
         let scan = &block.group("scans").unwrap().tables[0];
         assert_eq!(scan.column("bin_edges_ps").unwrap().data.len(), scan.column("counts").unwrap().data.len() + 1);
+    }
+
+    #[test]
+    fn every_documented_entry_has_a_meaning() {
+        for e in layout_entries(&sample_document()) {
+            assert!(!e.note.is_empty(), "{} has no meaning in note_for()", e.path);
+            // A bare '|' would split a Markdown table cell.
+            assert!(!e.note.contains('|'), "{}", e.note);
+        }
     }
 
     #[test]

@@ -211,7 +211,17 @@ fn write_stdout(doc: &Document, format: Format) -> Result<()> {
             return Err(Error::Usage("HDF5 output cannot go to stdout (-o -); give a file name or --format csv|json".into()))
         }
     };
-    r.and_then(|()| std::io::Write::flush(&mut out).map_err(|e| Error::io("<stdout>", e)))
+    let r = r.and_then(|()| std::io::Write::flush(&mut out).map_err(|e| Error::io("<stdout>", e)));
+    quiet_broken_pipe(r)
+}
+
+/// A reader that stops early (`tagsieve ... -o - | head`) is not an error of ours
+/// (common practice for command-line filters, no source).
+fn quiet_broken_pipe(r: Result<()>) -> Result<()> {
+    match r {
+        Err(Error::Io { source, .. }) if source.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
+        other => other,
+    }
 }
 
 /// Write `doc` to `path` through `writer`, atomically: on any writer error neither the
@@ -240,5 +250,18 @@ fn rename_error_path(e: Error, temp: &Path, path: &Path) -> Error {
         Error::Output { path: p, message } if p == temp => Error::Output { path: path.to_path_buf(), message },
         Error::Io { path: p, source } if p == temp => Error::Io { path: path.to_path_buf(), source },
         other => other,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn broken_pipe_on_stdout_is_quiet_other_errors_are_not() {
+        let pipe = Error::io("<stdout>", std::io::Error::from(std::io::ErrorKind::BrokenPipe));
+        assert!(quiet_broken_pipe(Err(pipe)).is_ok());
+        let full = Error::io("<stdout>", std::io::Error::from(std::io::ErrorKind::StorageFull));
+        assert!(quiet_broken_pipe(Err(full)).is_err());
     }
 }

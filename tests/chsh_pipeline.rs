@@ -1,0 +1,67 @@
+//! The CHSH pipeline end to end through the binary: simulate a run, then `chsh` on its
+//! manifest, checked against published bounds.
+
+mod common;
+use common::tagsieve;
+use serde_json::Value;
+
+fn simulate(dir: &std::path::Path, extra: &[&str]) {
+    let out = tagsieve().args(["simulate", "--quiet", "--out"]).arg(dir).args(extra).output().unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+}
+
+fn chsh_json(manifest: &std::path::Path) -> Value {
+    let out = tagsieve().args(["chsh", "--quiet", "--json", "-w", "600"]).arg(manifest).output().unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    serde_json::from_slice(&out.stdout).unwrap()
+}
+
+fn primary(v: &Value, kind: &str) -> (f64, f64) {
+    let s = v["chsh"]["s_values"].as_array().unwrap().iter().find(|s| s["is_primary"] == true && s["kind"] == kind).unwrap().clone();
+    (s["s"].as_f64().unwrap(), s["s_sigma"].as_f64().unwrap())
+}
+
+#[test]
+fn quantum_source_reaches_two_root_two_times_v() {
+    // Quantum bound 2√2 (Cirel'son, Lett. Math. Phys. 4, 93 (1980)) reached at the standard
+    // angles 0°, 45°, 22.5°, 67.5°; with visibility V the correlations scale by V, so
+    // S = 2√2·V (CHSH, Phys. Rev. Lett. 23, 880 (1969)).
+    let d = tempfile::tempdir().unwrap();
+    let v = 0.9;
+    simulate(d.path(), &["--visibility", "0.9", "--seed", "5", "--duration-s", "1"]);
+    let j = chsh_json(&d.path().join("run.toml"));
+    let (s, sigma) = primary(&j, "raw");
+    let expect = 2.0 * 2f64.sqrt() * v;
+    // Accidentals at 600 ps are ~10⁻⁴ of the coincidences, far below σ; test the corrected S.
+    let (sc, sc_sigma) = primary(&j, "accidental-corrected");
+    assert!((sc - expect).abs() < 3.0 * sc_sigma, "S corrected {sc} ± {sc_sigma} vs {expect}");
+    assert!((s - expect).abs() < 3.0 * sigma + 0.01, "S raw {s} ± {sigma} vs {expect}");
+    assert!(sigma > 0.005 && sigma < 0.05, "σ_S {sigma}");
+}
+
+#[test]
+fn local_hidden_variable_source_stays_within_two() {
+    // Any local model obeys |S| ≤ 2 (CHSH, Phys. Rev. Lett. 23, 880 (1969)).
+    let d = tempfile::tempdir().unwrap();
+    simulate(d.path(), &["--model", "lhv", "--seed", "9", "--duration-s", "1"]);
+    let j = chsh_json(&d.path().join("run.toml"));
+    for kind in ["raw", "accidental-corrected"] {
+        for s in j["chsh"]["s_values"].as_array().unwrap().iter().filter(|s| s["kind"] == kind) {
+            let (v, sig) = (s["s"].as_f64().unwrap(), s["s_sigma"].as_f64().unwrap());
+            assert!(v.abs() <= 2.0 + 3.0 * sig, "{kind} {}: {v} ± {sig}", s["formula"]);
+        }
+    }
+}
+
+#[test]
+fn visibility_series_recovers_simulated_visibility() {
+    // N(θ) ∝ 1 + V·cos 2(θ − θ0) for (|HH⟩+|VV⟩)/√2 (common practice, no source).
+    let d = tempfile::tempdir().unwrap();
+    simulate(d.path(), &["--visibility", "0.8", "--seed", "3", "--duration-s", "0.5", "--series", "0,20,40,60,80,100,120,140,160"]);
+    let j = chsh_json(&d.path().join("run.toml"));
+    assert!(j["chsh"].is_null(), "a series has no CHSH settings");
+    let fit = &j["visibility"][0];
+    let (v, sig) = (fit["visibility"].as_f64().unwrap(), fit["visibility_sigma"].as_f64().unwrap());
+    assert!((v - 0.8).abs() < 3.0 * sig, "V {v} ± {sig}");
+    assert!(fit["theta0_deg"].as_f64().unwrap().abs() < 3.0 * fit["theta0_sigma_deg"].as_f64().unwrap() + 0.5);
+}
