@@ -1,1 +1,103 @@
-fn main() {}
+//! Read throughput of each input format from a warm page cache, each beside a plain sum
+//! over the same mapping in the same run (the memory-bandwidth yardstick). Files of
+//! `TAGSIEVE_BENCH_MIB` MiB (default 256) are generated in a temp dir with an integer PRNG.
+//! Targets: arrays and container ≥ 50% of the plain-sum rate; records demux ≥ 25%.
+
+use criterion::{black_box, criterion_group, criterion_main, Criterion, Throughput};
+use std::path::{Path, PathBuf};
+use std::time::Duration;
+use tagsieve::read::channel_array::write_channel_array;
+use tagsieve::read::container::write_container;
+use tagsieve::read::layout::RecordLayout;
+use tagsieve::read::records::write_records;
+use tagsieve::read::{all_channels, open_inputs, ReadOptions};
+use tagsieve::ChannelTags;
+
+const CHANNELS: u32 = 4;
+const RECORD_SPEC: &str = "rec=16,time=0:8:le,chan=8:2:le,tick_ps=1";
+
+fn bench_mib() -> u64 {
+    std::env::var("TAGSIEVE_BENCH_MIB").ok().and_then(|s| s.parse().ok()).unwrap_or(256)
+}
+
+/// Four interleaved Poisson-like channels from one xorshift stream: ascending times with
+/// gaps uniform in 1..=2000 ps, each assigned to a channel by the generator.
+fn synthetic(events: usize) -> Vec<ChannelTags<'static>> {
+    let mut x: u64 = 0x2545_F491_4F6C_DD1D;
+    let mut t = 0u64;
+    let mut per: Vec<Vec<u64>> = (0..CHANNELS).map(|_| Vec::with_capacity(events / CHANNELS as usize + 16)).collect();
+    for _ in 0..events {
+        x ^= x << 13;
+        x ^= x >> 7;
+        x ^= x << 17;
+        t += 1 + x % 2000;
+        per[(x >> 60) as usize % CHANNELS as usize].push(t);
+    }
+    per.into_iter().enumerate().map(|(c, v)| ChannelTags::owned(c as u32 + 1, "", v)).collect()
+}
+
+struct Files {
+    _dir: tempfile::TempDir,
+    array: PathBuf,
+    records: PathBuf,
+    container: PathBuf,
+}
+
+fn make_files() -> Files {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let bytes = bench_mib() << 20;
+    let one = synthetic((bytes / 8) as usize);
+    let mut single: Vec<u64> = one.iter().flat_map(|c| c.times_ps.iter().copied()).collect();
+    single.sort_unstable();
+    let array = dir.path().join("a.u64");
+    write_channel_array(&array, &single).expect("array");
+    drop(single);
+    let container = dir.path().join("c.sieve");
+    write_container(&container, &one, 1.0, "bench").expect("container");
+    let records = dir.path().join("r.bin");
+    let half = synthetic((bytes / 16) as usize);
+    write_records(&records, &RecordLayout::from_spec(RECORD_SPEC).expect("spec"), &half).expect("records");
+    Files { _dir: dir, array, records, container }
+}
+
+/// The yardstick: sum every u64 of the mapped file.
+fn plain_sum(path: &Path) -> u64 {
+    let f = std::fs::File::open(path).expect("open");
+    // SAFETY: benchmark files in our own temp dir; nobody else writes them.
+    let map = unsafe { memmap2::Mmap::map(&f) }.expect("map");
+    let (_, words, _) = unsafe { map.align_to::<u64>() };
+    words.iter().fold(0u64, |a, &w| a.wrapping_add(w))
+}
+
+/// Open, validate and hand out every channel (zero-copy where the format allows).
+fn read_all(arg: &str, layout: Option<&RecordLayout>) -> usize {
+    let src = open_inputs(&[arg.to_string()], layout, ReadOptions::default()).expect("open");
+    let chans = all_channels(&src).expect("read");
+    chans.iter().map(|c| c.len()).sum()
+}
+
+fn formats(c: &mut Criterion) {
+    let files = make_files();
+    let layout = RecordLayout::from_spec(RECORD_SPEC).expect("spec");
+    let sets: [(&str, String, &Path, Option<&RecordLayout>); 3] = [
+        ("channel_array", format!("1={}", files.array.display()), &files.array, None),
+        ("records_demux", files.records.display().to_string(), &files.records, Some(&layout)),
+        ("container", files.container.display().to_string(), &files.container, None),
+    ];
+    for (name, arg, path, layout) in sets {
+        let mut g = c.benchmark_group(name);
+        g.sample_size(10);
+        g.throughput(Throughput::Bytes(std::fs::metadata(path).expect("size").len()));
+        let _ = plain_sum(path); // warm the page cache
+        g.bench_function("plain_sum", |b| b.iter(|| black_box(plain_sum(path))));
+        g.bench_function("read", |b| b.iter(|| black_box(read_all(&arg, layout))));
+        g.finish();
+    }
+}
+
+criterion_group! {
+    name = read;
+    config = Criterion::default().warm_up_time(Duration::from_secs(1)).measurement_time(Duration::from_secs(3));
+    targets = formats
+}
+criterion_main!(read);

@@ -197,7 +197,6 @@ fn count_to_stdout(fx: &Fixture, format: &str) -> std::process::Output {
 }
 
 #[test]
-#[ignore = "tagsieve count prints its summary table on stdout even with -o - (src/cli); un-ignore once it goes to stderr"]
 fn count_streams_csv_and_json_to_stdout_but_not_hdf5() {
     let fx = fixture();
     let csv = count_to_stdout(&fx, "csv");

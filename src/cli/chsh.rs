@@ -107,7 +107,9 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         }
         super::write_tables(&outcome.blocks, prov, analysis_groups(&outcome), out, &args.out)?;
     }
-    print(&outcome, g);
+    if !args.out.to_stdout() {
+        print(&outcome, g);
+    }
     Ok(())
 }
 

@@ -106,6 +106,11 @@ pub struct OutputArgs {
 }
 
 impl OutputArgs {
+    /// Tables go to stdout (`-o -`): then the human summary is left out.
+    pub fn to_stdout(&self) -> bool {
+        self.output.as_deref().is_some_and(|p| p.as_os_str() == "-")
+    }
+
     /// Fail early (before any long pass) on an output that cannot be written.
     pub fn precheck(&self) -> Result<()> {
         if let Some(p) = &self.output {

@@ -41,7 +41,9 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         let prov = provenance(&args, &cfg, &sources)?;
         super::write_tables(&blocks, prov, vec![], out, &args.out)?;
     }
-    print_counts(&blocks, g);
+    if !args.out.to_stdout() {
+        print_counts(&blocks, g);
+    }
     Ok(())
 }
 

@@ -69,7 +69,9 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         let p = super::add_inputs(p, &sources)?;
         super::write_tables(std::slice::from_ref(&block), p, vec![], out, &args.out)?;
     }
-    print_scan(&block, proposal.as_ref().map(|x| &x.0), &args, g);
+    if !args.out.to_stdout() {
+        print_scan(&block, proposal.as_ref().map(|x| &x.0), &args, g);
+    }
     Ok(())
 }
 

@@ -87,7 +87,9 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         let p = super::add_inputs(p, &sources)?;
         super::write_tables(std::slice::from_ref(&block), p, vec![], out, &args.out)?;
     }
-    print_sweep(&block, g);
+    if !args.out.to_stdout() {
+        print_sweep(&block, g);
+    }
     Ok(())
 }
 

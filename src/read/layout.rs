@@ -192,7 +192,14 @@ impl RecordLayout {
             tick,
             wrap_bits: raw.wrap_bits,
         };
-        layout.validate().map_err(|m| cfg_err(1, m))?;
+        layout.validate().map_err(|m| {
+            // Point at the key the consistency error is about.
+            let key = [("time and", "[channel]"), ("time", "[time]"), ("channel", "[channel]"), ("wrap", "wrap_bits"), ("record", "record_bytes")]
+                .iter()
+                .find(|(start, _)| m.starts_with(start))
+                .map_or("record_bytes", |(_, k)| k);
+            cfg_err(line_for(key), m)
+        })?;
         Ok(layout)
     }
 
@@ -391,6 +398,11 @@ mod tests {
         let ok = text.replace("endianness", "endian");
         let l = RecordLayout::from_toml(&ok, Path::new("l.toml")).unwrap();
         assert_eq!((l.tick.fs, l.time.endian), (80_955, Endian::Big));
+        let wide = ok.replace("offset = 8\nwidth = 2", "offset = 15\nwidth = 2");
+        match RecordLayout::from_toml(&wide, Path::new("l.toml")).unwrap_err() {
+            Error::Config { line, message, .. } => assert_eq!(line, 7, "{message}"),
+            other => panic!("{other}"),
+        }
         let float = ok.replace("\"80.955\"", "80.955");
         assert_eq!(RecordLayout::from_toml(&float, Path::new("l.toml")).unwrap().tick.fs, 80_955);
     }

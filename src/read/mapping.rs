@@ -181,12 +181,12 @@ fn open_regular(path: &Path) -> Result<(File, u64, Option<SystemTime>)> {
 
 /// Say what was expected for the two common failures; keep the OS text otherwise.
 fn open_error(path: &Path, e: std::io::Error) -> Error {
-    let text = match e.kind() {
-        std::io::ErrorKind::NotFound => "no such file, expected an existing tag file",
-        std::io::ErrorKind::PermissionDenied => "permission denied, expected a file this user may read",
+    let expected = match e.kind() {
+        std::io::ErrorKind::NotFound => "expected an existing tag file",
+        std::io::ErrorKind::PermissionDenied => "expected a file this user may read",
         _ => return Error::io(path, e),
     };
-    Error::io(path, std::io::Error::new(e.kind(), text))
+    Error::io(path, std::io::Error::new(e.kind(), format!("{e}, {expected}")))
 }
 
 #[cfg(unix)]

@@ -101,7 +101,7 @@ fn open_one(arg: &str, layout: Option<&layout::RecordLayout>, opts: ReadOptions)
     match layout {
         Some(l) => Ok(Box::new(records::Records::from_mapping(map, l.clone(), opts)?)),
         None => Err(Error::Usage(format!(
-            "{arg}: byte offset 0: found {}, not the {} container magic {:02x?}, and no --layout given; \
+            "{arg}: byte offset 0: found {}: not a container file (its {} magic is {:02x?}) and no --layout given; \
              give per-channel arrays as CH=PATH, or describe the records with --layout FILE|SPEC",
             first_bytes(&map)?,
             container::EXTENSION,

@@ -81,7 +81,7 @@ impl TagSource for Records {
             d.feed(&self.block(first, n)?)?;
             first += n;
         }
-        Ok(d.take())
+        Ok(d.take(false))
     }
 
     fn chunks(&self, events_per_chunk: usize) -> Result<Box<dyn Iterator<Item = Result<Vec<ChannelTags<'static>>>> + Send + '_>> {
@@ -94,7 +94,7 @@ impl TagSource for Records {
                 return None;
             }
             let n = per.min(self.count - first);
-            let r = self.block(first, n).and_then(|b| d.feed(&b)).map(|()| d.take());
+            let r = self.block(first, n).and_then(|b| d.feed(&b)).map(|()| d.take(true));
             first += n;
             failed = r.is_err();
             Some(r)
@@ -113,7 +113,8 @@ impl TagSource for Records {
 }
 
 /// An unsigned field of compile-time width and byte order, so the demux loop compiles to
-/// plain loads for each layout instead of a per-byte loop.
+/// one plain load per field for each layout. (Each width reads its own integer type: going
+/// through a zeroed 8-byte buffer makes the CPU stall on store-to-load forwarding.)
 trait Uint {
     fn get(b: &[u8]) -> u64;
 }
@@ -122,18 +123,32 @@ struct Be<const W: usize>;
 impl<const W: usize> Uint for Le<W> {
     #[inline(always)]
     fn get(b: &[u8]) -> u64 {
-        let mut a = [0u8; 8];
-        a[..W].copy_from_slice(&b[..W]);
-        u64::from_le_bytes(a)
+        match W {
+            1 => b[0] as u64,
+            2 => u16::from_le_bytes([b[0], b[1]]) as u64,
+            4 => u32::from_le_bytes([b[0], b[1], b[2], b[3]]) as u64,
+            _ => u64::from_le_bytes(b[..8].try_into().expect("8-byte field")),
+        }
     }
 }
 impl<const W: usize> Uint for Be<W> {
     #[inline(always)]
     fn get(b: &[u8]) -> u64 {
-        let mut a = [0u8; 8];
-        a[8 - W..].copy_from_slice(&b[..W]);
-        u64::from_be_bytes(a)
+        match W {
+            1 => b[0] as u64,
+            2 => u16::from_be_bytes([b[0], b[1]]) as u64,
+            4 => u32::from_be_bytes([b[0], b[1], b[2], b[3]]) as u64,
+            _ => u64::from_be_bytes(b[..8].try_into().expect("8-byte field")),
+        }
     }
+}
+
+/// See [`Demuxer::fast_ticks`]: min of the u64-overflow bound and the last tick count
+/// whose ps (round half up) stays below 2^62.
+fn fast_ticks(tick_fs: u64) -> u64 {
+    let overflow = (u64::MAX - 500) / tick_fs;
+    let limit = (MAX_PS as u128 * 1000 - 501) / tick_fs as u128;
+    overflow.min(limit.min(u64::MAX as u128) as u64)
 }
 
 /// Channel numbers below this map to a slot through a flat table; others through a map.
@@ -146,18 +161,14 @@ struct Demuxer<'a> {
     layout: &'a RecordLayout,
     path: &'a Path,
     lenient: bool,
-    slot_small: Vec<u32>,
-    slot_big: HashMap<u64, u32>,
-    channels: Vec<Channel>,
-    times: Vec<Vec<u64>>,
+    slots: Slots,
     prev_raw: u64,
     /// Ticks added by wraps so far (multiple of 2^wrap_bits).
     epoch_ticks: u64,
     next_index: u64,
-    /// Largest tick count whose `ticks · tick_fs + 500` fits in u64 (fast path).
+    /// Largest tick count on the u64 fast path: `ticks · tick_fs + 500` fits in u64 and the
+    /// result is below [`MAX_PS`], so the loop needs no separate limit test.
     fast_ticks: u64,
-    /// Largest raw counter the wrap allows (2^wrap_bits − 1; u64::MAX without a wrap).
-    max_raw: u64,
     new_slot_capacity: usize,
 }
 
@@ -167,15 +178,11 @@ impl<'a> Demuxer<'a> {
             layout,
             path,
             lenient,
-            slot_small: vec![NO_SLOT; SMALL_CHANNELS],
-            slot_big: HashMap::new(),
-            channels: Vec::new(),
-            times: Vec::new(),
+            slots: Slots::new(),
             prev_raw: 0,
             epoch_ticks: 0,
             next_index: 0,
-            fast_ticks: (u64::MAX - 500) / layout.tick.fs,
-            max_raw: layout.wrap_bits.and_then(|b| 1u64.checked_shl(b)).map_or(u64::MAX, |p| p - 1),
+            fast_ticks: fast_ticks(layout.tick.fs),
             new_slot_capacity: 1024,
         }
     }
@@ -183,20 +190,27 @@ impl<'a> Demuxer<'a> {
     /// Give each channel room for its share (seen so far) of `remaining` records, +5%.
     fn reserve_by_share(&mut self, remaining: u64) {
         let seen = self.next_index.max(1) as f64;
-        for v in &mut self.times {
+        for v in &mut self.slots.times {
             let want = (v.len() as f64 / seen * remaining as f64 * 1.05) as usize;
             v.reserve(want);
+            advise_huge_pages(v);
         }
         self.new_slot_capacity = (remaining / 64).clamp(1024, 1 << 20) as usize;
     }
 
     /// Per channel (ascending channel number) the events fed since the last `take`.
-    fn take(&mut self) -> Vec<ChannelTags<'static>> {
+    /// `refill`: give each channel a new vector as large as the one handed out (chunked
+    /// reading, where the next chunk has about as many events).
+    fn take(&mut self, refill: bool) -> Vec<ChannelTags<'static>> {
         let mut out: Vec<_> = self
+            .slots
             .channels
             .iter()
-            .zip(&mut self.times)
-            .map(|(&c, v)| ChannelTags::owned(c, "", std::mem::take(v)))
+            .zip(&mut self.slots.times)
+            .map(|(&c, v)| {
+                let next = if refill { Vec::with_capacity(v.len()) } else { Vec::new() };
+                ChannelTags::owned(c, "", std::mem::replace(v, next))
+            })
             .collect();
         out.sort_by_key(|c| c.channel);
         out
@@ -225,35 +239,61 @@ impl<'a> Demuxer<'a> {
 
     /// The hot loop. Shaped so the common record costs two fixed-width loads, one compare
     /// with the previous counter, a u64 multiply-add and constant division, one table
-    /// lookup and a push into a pre-reserved vector; wraps, errors and new channels leave
+    /// lookup and a push into a pre-reserved vector. The counter state lives in locals and
+    /// the slot table is moved out of `self` for the loop, so both stay in registers/L1
+    /// instead of being reloaded after every store; wraps, errors and new channels leave
     /// the loop body through cold calls.
     fn run<T: Uint, C: Uint>(&mut self, bytes: &[u8]) -> Result<()> {
         let (rec, t_off, c_off) = (self.layout.record_bytes, self.layout.time.offset_bytes, self.layout.channel.offset_bytes);
-        let fs = self.layout.tick.fs;
+        let (fs, fast_ticks) = (self.layout.tick.fs, self.fast_ticks);
+        // 1 ps ticks (the common case) skip the multiply-divide; the test is loop-invariant.
+        let unit = fs == 1000;
+        // With a wrap of B bits only the low B bits of the time field are the counter.
+        let mask = match self.layout.wrap_bits {
+            Some(b) if b < 64 => (1u64 << b) - 1,
+            _ => u64::MAX,
+        };
+        let mut slots = std::mem::take(&mut self.slots);
+        let (mut prev, mut epoch) = (self.prev_raw, self.epoch_ticks);
+        let mut outcome = Ok(());
         for (i, r) in bytes.chunks_exact(rec).enumerate() {
-            let raw = T::get(&r[t_off..]);
+            let raw = T::get(&r[t_off..]) & mask;
             let ch = C::get(&r[c_off..]);
-            if raw < self.prev_raw || raw > self.max_raw {
-                self.unusual_raw(bytes, i, raw)?;
+            if raw < prev {
+                self.prev_raw = prev;
+                if let Err(e) = self.step_back(bytes, i, raw) {
+                    outcome = Err(e);
+                    break;
+                }
+                epoch = self.epoch_ticks;
             }
-            self.prev_raw = raw;
-            let ticks = self.epoch_ticks.wrapping_add(raw);
-            let ps = if ticks <= self.fast_ticks && ticks >= self.epoch_ticks {
-                (ticks * fs + 500) / 1000
+            prev = raw;
+            let ticks = epoch.wrapping_add(raw);
+            let ps = if ticks <= fast_ticks && ticks >= epoch {
+                if unit {
+                    ticks
+                } else {
+                    (ticks * fs + 500) / 1000
+                }
             } else {
-                self.slow_ps(raw)
+                match self.slow_ps(raw) {
+                    ps if ps < MAX_PS => ps,
+                    _ => {
+                        outcome = Err(self.too_late(bytes, i, raw));
+                        break;
+                    }
+                }
             };
-            if ps >= MAX_PS {
-                return Err(self.too_late(bytes, i, raw));
-            }
-            let slot = match self.slot_small.get(ch as usize) {
+            let slot = match slots.small.get(ch as usize) {
                 Some(&s) if s != NO_SLOT => s,
-                _ => self.slot_of(ch, i)?,
+                _ => slots.slot_of(ch, self.new_slot_capacity),
             };
-            self.times[slot as usize].push(ps);
+            slots.times[slot as usize].push(ps);
         }
+        self.slots = slots;
+        self.prev_raw = prev;
         self.next_index += (bytes.len() / rec) as u64;
-        Ok(())
+        outcome
     }
 
     /// ps for tick counts past the u64 fast path (u128; [`MAX_PS`] when out of range).
@@ -262,26 +302,6 @@ impl<'a> Demuxer<'a> {
         let ticks = self.epoch_ticks as u128 + raw as u128;
         let ps = (ticks * self.layout.tick.fs as u128 + 500) / 1000;
         ps.min(MAX_PS as u128) as u64
-    }
-
-    /// A counter above the wrap period (the layout's wrap does not match the data) or a
-    /// step back (see [`Self::step_back`]).
-    #[cold]
-    fn unusual_raw(&mut self, bytes: &[u8], i: usize, raw: u64) -> Result<()> {
-        if raw <= self.max_raw {
-            return self.step_back(bytes, i, raw);
-        }
-        let (index, at) = self.location(i);
-        let bits = self.layout.wrap_bits.unwrap_or(64);
-        Err(Error::bad_input(
-            self.path,
-            record_location(index, at),
-            format!("time counter {raw} ticks, more than wrap={bits} allows"),
-            format!(
-                "a counter below 2^{bits} = {} (the layout's wrap does not match the data: give the counter's real width in bits, or leave wrap out)",
-                self.max_raw as u128 + 1
-            ),
-        ))
     }
 
     /// The raw counter went down: a wrap when the layout has one, else an error (strict)
@@ -303,7 +323,12 @@ impl<'a> Demuxer<'a> {
             format!("time counter {raw} ticks after {} ticks", self.prev_raw),
             format!("≥ {} ticks (records in time order; the layout has no wrap)", self.prev_raw),
         );
-        Err(self.with_swap_hint(e, bytes, i))
+        match wrap_guess(self.prev_raw, raw) {
+            Some(bits) => Err(e.with_hint(format!(
+                "the counter fell from the top to the bottom of a {bits}-bit range: it looks like it wraps at 2^{bits}; add wrap={bits} to the layout"
+            ))),
+            None => Err(self.with_swap_hint(e, bytes, i)),
+        }
     }
 
     #[cold]
@@ -326,41 +351,87 @@ impl<'a> Demuxer<'a> {
     }
 
     /// Suggest the other byte order when the time field read that way rises steadily
-    /// over the records of this block around the failure (up to 4096 either side; a
-    /// big-endian 8-byte counter read as little-endian already fails at record 0).
+    /// over the records of this block around the failure (up to 2048 either side).
     fn with_swap_hint(&self, e: Error, bytes: &[u8], i: usize) -> Error {
         let t = self.layout.time;
         let other = Field { endian: t.endian.other(), ..t };
-        let start = i.saturating_sub(4095);
-        let n = bytes.len() / self.layout.record_bytes;
-        let end = n.min(i + 4096);
-        let recs = bytes.chunks_exact(self.layout.record_bytes).skip(start).take(end - start);
-        if end - start > 1 && looks_monotone(recs.map(|r| other.get(r))) {
+        let start = i.saturating_sub(2048);
+        let recs = bytes.chunks_exact(self.layout.record_bytes).skip(start).take(i + 2048 - start);
+        if looks_monotone(recs.map(|r| other.get(r))) {
             let try_spec = format!("time={}:{}:{}", t.offset_bytes, t.width_bytes, other.endian.short());
             return e.with_hint(format!("records look byte-swapped: try {try_spec}"));
         }
         e
     }
 
-    #[cold]
-    fn slot_of(&mut self, ch: u64, i: usize) -> Result<u32> {
-        if let Some(&s) = self.slot_big.get(&ch) {
-            return Ok(s);
-        }
-        let channel = Channel::try_from(ch).map_err(|_| {
-            let (index, at) = self.location(i);
-            Error::bad_input(self.path, record_location(index, at), format!("channel {ch}"), "a channel number below 2^32")
-        })?;
-        let s = self.channels.len() as u32;
-        self.channels.push(channel);
-        self.times.push(Vec::with_capacity(self.new_slot_capacity));
-        if (ch as usize) < SMALL_CHANNELS {
-            self.slot_small[ch as usize] = s;
-        } else {
-            self.slot_big.insert(ch, s);
-        }
-        Ok(s)
+}
+
+/// Channel number → slot (flat table for small numbers, a map for the rest) and each
+/// slot's output vector.
+#[derive(Debug, Default)]
+struct Slots {
+    small: Vec<u32>,
+    big: HashMap<u64, u32>,
+    channels: Vec<Channel>,
+    times: Vec<Vec<u64>>,
+}
+
+impl Slots {
+    fn new() -> Self {
+        Slots { small: vec![NO_SLOT; SMALL_CHANNELS], ..Default::default() }
     }
+
+    /// The slot of a channel the flat table does not answer (large number or first sight).
+    #[cold]
+    fn slot_of(&mut self, ch: u64, capacity: usize) -> u32 {
+        if let Some(&s) = self.big.get(&ch) {
+            return s;
+        }
+        let s = self.channels.len() as u32;
+        // The channel field is at most 4 bytes wide, so `ch` fits a Channel (u32).
+        self.channels.push(ch as Channel);
+        self.times.push(Vec::with_capacity(capacity));
+        if (ch as usize) < SMALL_CHANNELS {
+            self.small[ch as usize] = s;
+        } else {
+            self.big.insert(ch, s);
+        }
+        s
+    }
+}
+
+/// Ask for transparent huge pages on a large freshly reserved vector. Demultiplexing
+/// writes every output byte once, and with 4 KiB pages the first-touch page faults cost
+/// more than the demux loop itself (measured with perf in benches/read.rs); 2 MiB pages
+/// cut the faults 512-fold. Advice only: no effect on contents or on other systems.
+fn advise_huge_pages(v: &mut Vec<u64>) {
+    #[cfg(target_os = "linux")]
+    {
+        const HUGE: usize = 2 << 20;
+        const MADV_HUGEPAGE: std::ffi::c_int = 14;
+        extern "C" {
+            fn madvise(addr: *mut std::ffi::c_void, len: usize, advice: std::ffi::c_int) -> std::ffi::c_int;
+        }
+        let start = v.as_mut_ptr() as usize;
+        let end = start + v.capacity() * std::mem::size_of::<u64>();
+        let (a, b) = ((start + HUGE - 1) & !(HUGE - 1), end & !(HUGE - 1));
+        if b > a {
+            // SAFETY: [a, b) lies inside the vector's own allocation; MADV_HUGEPAGE only
+            // changes how the kernel backs those pages, never their contents.
+            unsafe { madvise(a as *mut std::ffi::c_void, b - a, MADV_HUGEPAGE) };
+        }
+    }
+    #[cfg(not(target_os = "linux"))]
+    let _ = v;
+}
+
+/// A step from `prev` down to `raw` that looks like a counter wrap: `prev` in the top
+/// eighth of the smallest power-of-two range holding it (2^B, B ≥ 8) and `raw` in the
+/// bottom eighth. Returns B.
+fn wrap_guess(prev: u64, raw: u64) -> Option<u32> {
+    let bits = 64 - prev.leading_zeros();
+    let eighth = 1u64.checked_shl(bits)?.checked_shr(3)?;
+    (bits >= 8 && prev >= 7 * eighth && raw < eighth).then_some(bits)
 }
 
 /// Write interleaved records (format b) in time order with `layout` (ps → ticks by the
@@ -375,7 +446,7 @@ pub fn write_records(path: &Path, layout: &RecordLayout, channels: &[ChannelTags
     w.write_all(&vec![0u8; layout.header_bytes as usize]).map_err(io)?;
     let mut enc = RecordEncoder::new(layout, path);
     for (ps, ch) in merged(channels) {
-        w.write_all(&enc.encode(ps, ch)?).map_err(io)?;
+        w.write_all(enc.encode(ps, ch)?).map_err(io)?;
     }
     w.flush().map_err(io)?;
     drop(w);
@@ -470,6 +541,42 @@ mod tests {
         let c = r.channels().unwrap();
         assert_eq!(&*c[0].times_ps, &[250, 266]);
         assert_eq!(&*c[1].times_ps, &[259]);
+    }
+
+    #[test]
+    fn fast_path_ends_exactly_at_the_limit() {
+        for fs in [1u64, 500, 1000, 80_955, 1 << 40] {
+            let t = fast_ticks(fs);
+            let tick = super::super::layout::Tick { fs };
+            assert!(tick.to_ps(t) < MAX_PS as u128 && (t as u128 * fs as u128 + 500) <= u64::MAX as u128, "{fs}");
+            assert!(tick.to_ps(t + 1) >= MAX_PS as u128 || (t as u128 + 1) * fs as u128 + 500 > u64::MAX as u128, "{fs}");
+        }
+    }
+
+    #[test]
+    fn bits_above_the_wrap_width_are_ignored() {
+        let d = tempfile::tempdir().unwrap();
+        let p = d.path().join("r.bin");
+        // 12-bit counter in a 4-byte field whose top bits carry flags: raw 0xF000_0FF0,
+        // then 0x0000_0010 (a wrap) → ticks 4080, 4096 + 16 = 4112.
+        let mut bytes = Vec::new();
+        for raw in [0xF000_0FF0u32, 0x0000_0010] {
+            bytes.extend_from_slice(&raw.to_le_bytes());
+            bytes.extend_from_slice(&[1, 0, 0, 0]);
+        }
+        std::fs::write(&p, &bytes).unwrap();
+        let r = Records::open(&p, layout("rec=8,time=0:4,chan=4:1,tick_ps=1,wrap=12"), ReadOptions::default()).unwrap();
+        assert_eq!(&*r.channels().unwrap()[0].times_ps, &[4080, 4112]);
+    }
+
+    #[test]
+    fn wrap_guess_needs_top_then_bottom_of_a_range() {
+        assert_eq!(wrap_guess(65_500, 20), Some(16)); // just below 2^16, then near 0
+        assert_eq!(wrap_guess(u32::MAX as u64 - 5, 3), Some(32));
+        assert_eq!(wrap_guess(40_000, 20), None); // 40 000 < 7/8 · 2^16
+        assert_eq!(wrap_guess(65_500, 30_000), None);
+        assert_eq!(wrap_guess(250, 3), Some(8));
+        assert_eq!(wrap_guess(120, 3), None); // 7 bits: too small a range to tell
     }
 
     #[test]

@@ -7,8 +7,6 @@ use super::{looks_monotone, record_location, MAX_PS};
 use crate::{Channel, ChannelTags, Error, Result};
 use std::borrow::Cow;
 
-const SWAP_HINT: &str = "values look byte-swapped: this reader expects little-endian u64";
-
 /// One channel's timestamps: `count` u64 LE values starting at `offset_bytes`.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Section {
@@ -57,19 +55,25 @@ impl OrderChecker {
             let at = record_location(index, section_offset + 8 * index);
             if t >= MAX_PS {
                 let e = Error::bad_input(map.path(), at, format!("timestamp {t} ps"), format!("below 2^62 = {MAX_PS} ps (about 53.4 days)"));
-                // Big-endian data read as little-endian usually fails here, at record 0.
-                let ahead = &times[i..times.len().min(i + 4096)];
-                let swapped = ahead.iter().all(|v| v.swap_bytes() < MAX_PS) && looks_monotone(ahead.iter().map(|v| v.swap_bytes()));
-                return Err(if swapped { e.with_hint(SWAP_HINT) } else { e });
+                return Err(swap_hint(e, times, i));
             }
             if let Some(p) = prev.filter(|&p| t < p && !self.lenient) {
                 let e = Error::bad_input(map.path(), at, format!("timestamp {t} ps after {p} ps"), format!("≥ {p} ps (timestamps ascending)"));
-                let swapped = looks_monotone(times[..i + 1].iter().rev().take(4096).rev().map(|v| v.swap_bytes()));
-                return Err(if swapped { e.with_hint(SWAP_HINT) } else { e });
+                return Err(swap_hint(e, times, i));
             }
             prev = Some(t);
         }
         Ok(())
+    }
+}
+
+/// Add a hint when the values around the failure, byte-swapped, rise steadily.
+fn swap_hint(e: Error, times: &[u64], i: usize) -> Error {
+    let w = &times[i.saturating_sub(2048)..(i + 2048).min(times.len())];
+    if looks_monotone(w.iter().map(|v| v.swap_bytes())) {
+        e.with_hint("values look byte-swapped: this reader expects little-endian u64")
+    } else {
+        e
     }
 }
 
