@@ -11,9 +11,10 @@ use std::ffi::{c_char, CString};
 use std::path::Path;
 use std::sync::atomic::{AtomicBool, AtomicPtr, AtomicUsize, Ordering};
 
-/// The fixed message written to stderr when a mapped input faults.
-pub const MESSAGE: &str =
-    "tagsieve: error: input file changed size while mapped; rerun on a stable copy or with --no-mmap\n";
+/// The fixed message written to stderr when a mapped input faults, after
+/// `tagsieve: error: PATH: ` naming the file.
+pub const MESSAGE: &str = "input file changed size while mapped; rerun on a stable copy or with --no-mmap\n";
+const PREFIX: &str = "tagsieve: error: ";
 
 /// Mapped ranges tracked at once; a mapping beyond these is still read, only unguarded.
 const MAP_SLOTS: usize = 256;
@@ -25,9 +26,14 @@ const ZERO: AtomicUsize = AtomicUsize::new(0);
 #[allow(clippy::declare_interior_mutable_const)]
 const NULL: AtomicPtr<c_char> = AtomicPtr::new(std::ptr::null_mut());
 
-/// (start, length) of each live mapping; start 0 marks a free slot.
+/// A slot being filled in (no mapping starts at address 1).
+const CLAIMED: usize = 1;
+
+/// (start, length) of each live mapping; start 0 marks a free slot, [`CLAIMED`] a busy one.
 static MAP_START: [AtomicUsize; MAP_SLOTS] = [ZERO; MAP_SLOTS];
 static MAP_LEN: [AtomicUsize; MAP_SLOTS] = [ZERO; MAP_SLOTS];
+/// NUL-terminated path of each mapping's file (for the message); never freed.
+static MAP_PATH: [AtomicPtr<c_char>; MAP_SLOTS] = [NULL; MAP_SLOTS];
 /// NUL-terminated paths of temporaries to unlink; null marks a free slot.
 static TEMPS: [AtomicPtr<c_char>; TEMP_SLOTS] = [NULL; TEMP_SLOTS];
 static INSTALLED: AtomicBool = AtomicBool::new(false);
@@ -44,19 +50,21 @@ impl Drop for MapToken {
     }
 }
 
-/// Record that `len` bytes at `start` are a mapped input file.
-pub fn register_mapping(start: *const u8, len: usize) -> MapToken {
+/// Record that `len` bytes at `start` are the mapped input file `path`.
+pub fn register_mapping(start: *const u8, len: usize, path: &Path) -> MapToken {
     let start = start as usize;
     if start == 0 || len == 0 {
         return MapToken(None);
     }
     for i in 0..MAP_SLOTS {
-        // Length first, then claim the slot: the handler reads start, then length.
-        if MAP_START[i].load(Ordering::SeqCst) == 0 {
+        // Claim the slot, then fill in the length, then publish the start: the handler
+        // skips claimed-but-unpublished slots, and two threads never share a slot.
+        if MAP_START[i].compare_exchange(0, CLAIMED, Ordering::SeqCst, Ordering::SeqCst).is_ok() {
             MAP_LEN[i].store(len, Ordering::SeqCst);
-            if MAP_START[i].compare_exchange(0, start, Ordering::SeqCst, Ordering::SeqCst).is_ok() {
-                return MapToken(Some(i));
-            }
+            // Leaked on purpose (a few bytes per input): the handler may still hold it.
+            MAP_PATH[i].store(c_path(path).map_or(std::ptr::null_mut(), CString::into_raw), Ordering::SeqCst);
+            MAP_START[i].store(start, Ordering::SeqCst);
+            return MapToken(Some(i));
         }
     }
     MapToken(None)
@@ -78,8 +86,7 @@ impl Drop for TempToken {
 
 /// Add a temporary output path for the handler to unlink.
 pub fn register_temp(path: &Path) -> TempToken {
-    use std::os::unix::ffi::OsStrExt;
-    let Ok(c) = CString::new(path.as_os_str().as_bytes()) else { return TempToken(None) };
+    let Some(c) = c_path(path) else { return TempToken(None) };
     let raw = c.into_raw();
     for (i, slot) in TEMPS.iter().enumerate() {
         if slot.compare_exchange(std::ptr::null_mut(), raw, Ordering::SeqCst, Ordering::SeqCst).is_ok() {
@@ -91,27 +98,38 @@ pub fn register_temp(path: &Path) -> TempToken {
     TempToken(None)
 }
 
-/// Whether `addr` lies in a registered mapping.
-fn in_mapping(addr: usize) -> bool {
-    (0..MAP_SLOTS).any(|i| {
+fn c_path(path: &Path) -> Option<CString> {
+    use std::os::unix::ffi::OsStrExt;
+    CString::new(path.as_os_str().as_bytes()).ok()
+}
+
+/// The slot of the registered mapping holding `addr`.
+fn mapping_at(addr: usize) -> Option<usize> {
+    (0..MAP_SLOTS).find(|&i| {
         let start = MAP_START[i].load(Ordering::SeqCst);
-        start != 0 && addr >= start && addr - start < MAP_LEN[i].load(Ordering::SeqCst)
+        start > CLAIMED && addr >= start && addr - start < MAP_LEN[i].load(Ordering::SeqCst)
     })
 }
 
 extern "C" fn on_sigbus(sig: libc::c_int, info: *mut libc::siginfo_t, _ctx: *mut libc::c_void) {
     // SAFETY: the kernel hands a valid siginfo to an SA_SIGINFO handler.
     let addr = unsafe { (*info).si_addr() } as usize;
-    if !in_mapping(addr) {
+    let Some(slot) = mapping_at(addr) else {
         // Not a mapped input: restore the default action; returning re-runs the faulting
         // access, which now ends the process as an ordinary SIGBUS.
         // SAFETY: signal(2) is async-signal-safe.
         unsafe { libc::signal(sig, libc::SIG_DFL) };
         return;
-    }
+    };
     // SAFETY: write, unlink and _exit are async-signal-safe; the paths are NUL-terminated
     // strings that are never freed.
     unsafe {
+        libc::write(2, PREFIX.as_ptr().cast(), PREFIX.len());
+        let path = MAP_PATH[slot].load(Ordering::SeqCst);
+        if !path.is_null() {
+            libc::write(2, path.cast(), libc::strlen(path));
+            libc::write(2, b": ".as_ptr().cast(), 2);
+        }
         libc::write(2, MESSAGE.as_ptr().cast(), MESSAGE.len());
         for slot in &TEMPS {
             let p = slot.load(Ordering::SeqCst);
@@ -147,11 +165,14 @@ mod tests {
     #[test]
     fn ranges_are_found_while_registered_only() {
         let buf = vec![0u8; 4096];
-        let t = register_mapping(buf.as_ptr(), buf.len());
+        let t = register_mapping(buf.as_ptr(), buf.len(), Path::new("/tmp/x.u64"));
         let a = buf.as_ptr() as usize;
-        assert!(in_mapping(a) && in_mapping(a + 4095) && !in_mapping(a + 4096));
+        let i = mapping_at(a).expect("registered");
+        assert_eq!(mapping_at(a + 4095), Some(i));
+        assert_eq!(mapping_at(a + 4096), None);
+        assert!(!MAP_PATH[i].load(Ordering::SeqCst).is_null());
         drop(t);
-        assert!(!in_mapping(a));
+        assert_eq!(mapping_at(a), None);
     }
 
     #[test]

@@ -525,7 +525,7 @@ fn expect_changed_exit(out: &Output) {
     assert!(!err.contains("panicked"), "{err}");
     assert_eq!(out.status.code(), Some(1), "{:?}: {err}", out.status);
     assert!(
-        err.contains("input file changed size while mapped; rerun on a stable copy or with --no-mmap")
+        err.contains("big.u64: input file changed size while mapped; rerun on a stable copy or with --no-mmap")
             || err.contains("file changed while it was read"),
         "{err}"
     );

@@ -67,7 +67,7 @@ impl Mapping {
         let mut m = Mapping::new(path, size_bytes, mtime, Backing::Mapped(map));
         #[cfg(unix)]
         if let Backing::Mapped(map) = &m.backing {
-            m._guard = Some(crate::guard::register_mapping(map.as_ptr(), map.len()));
+            m._guard = Some(crate::guard::register_mapping(map.as_ptr(), map.len(), path));
         }
         Ok(m)
     }
