@@ -60,15 +60,18 @@ fn total_bytes(sources: &[Box<dyn TagSource>]) -> u64 {
     sources.iter().map(|s| s.file().size_bytes).sum()
 }
 
-/// Chunks of the single source, feeding a progress bar (bytes estimated per event).
+/// Chunks of the single source, feeding a progress bar (bytes done, events/s, ETA).
 fn chunks_with_progress<'a>(
     src: &'a dyn TagSource,
     progress: &'a Progress,
 ) -> Result<impl Iterator<Item = Result<Vec<crate::ChannelTags<'static>>>> + 'a> {
     let it = src.chunks(STREAM_CHUNK_EVENTS)?;
+    // Bytes per event of this file, so the bar runs over its real size.
+    let bytes_per_event = src.file().size_bytes as f64 / src.event_count().max(1) as f64;
     Ok(it.inspect(move |c| {
         if let Ok(c) = c {
-            progress.inc(c.iter().map(|t| t.len() as u64 * 8).sum());
+            let events: u64 = c.iter().map(|t| t.len() as u64).sum();
+            progress.inc_events((events as f64 * bytes_per_event) as u64, events);
         }
     }))
 }

@@ -8,6 +8,7 @@ use std::io::IsTerminal;
 #[derive(Clone)]
 pub struct Progress {
     bar: ProgressBar,
+    events: std::sync::Arc<std::sync::atomic::AtomicU64>,
 }
 
 impl Progress {
@@ -20,7 +21,7 @@ impl Progress {
                 .progress_chars("=> "),
         );
         bar.set_prefix(what.to_string());
-        Progress { bar }
+        Progress { bar, events: Default::default() }
     }
 
     /// A bar over `total` items (events, blocks), labelled `what`.
@@ -32,12 +33,12 @@ impl Progress {
                 .progress_chars("=> "),
         );
         bar.set_prefix(what.to_string());
-        Progress { bar }
+        Progress { bar, events: Default::default() }
     }
 
     /// A hidden reporter (library use, tests).
     pub fn hidden() -> Self {
-        Progress { bar: ProgressBar::hidden() }
+        Progress { bar: ProgressBar::hidden(), events: Default::default() }
     }
 
     fn target(quiet: bool) -> ProgressDrawTarget {
@@ -50,6 +51,17 @@ impl Progress {
 
     pub fn inc(&self, n: u64) {
         self.bar.inc(n);
+    }
+
+    /// Advance by `bytes` that held `events` tags; the message shows the event rate.
+    pub fn inc_events(&self, bytes: u64, events: u64) {
+        use std::sync::atomic::Ordering;
+        let total = self.events.fetch_add(events, Ordering::Relaxed) + events;
+        self.bar.inc(bytes);
+        if !self.bar.is_hidden() {
+            let secs = self.bar.elapsed().as_secs_f64().max(1e-3);
+            self.bar.set_message(format!("{} events/s", crate::units::fmt_count((total as f64 / secs) as u64)));
+        }
     }
     pub fn set_message(&self, msg: impl Into<String>) {
         self.bar.set_message(msg.into());

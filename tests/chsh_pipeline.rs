@@ -65,3 +65,19 @@ fn visibility_series_recovers_simulated_visibility() {
     assert!((v - 0.8).abs() < 3.0 * sig, "V {v} ± {sig}");
     assert!(fit["theta0_deg"].as_f64().unwrap().abs() < 3.0 * fit["theta0_sigma_deg"].as_f64().unwrap() + 0.5);
 }
+
+#[test]
+fn three_setting_form_is_violated_at_thirty_degree_steps() {
+    // Bell's original form |E(a,b) − E(a,c)| ≤ 1 + E(b,c) (Physics 1, 195 (1964), from
+    // memory), applied to −E for the correlated state (|HH⟩+|VV⟩)/√2 with E = V·cos 2(α−β):
+    // at a = 0°, b = 30°, c = 60° the ideal values give |−½ − ½| = 1 > 1 − ½.
+    let d = tempfile::tempdir().unwrap();
+    simulate(d.path(), &["--angles", "0,30,30,60", "--seed", "13", "--duration-s", "1"]);
+    let j = chsh_json(&d.path().join("run.toml"));
+    let b = &j["bell3"];
+    assert_eq!(b["angles_deg"], serde_json::json!([0.0, 30.0, 60.0]), "{j}");
+    let (lhs, rhs, sig) = (b["lhs"].as_f64().unwrap(), b["rhs"].as_f64().unwrap(), b["margin_sigma"].as_f64().unwrap());
+    let v: f64 = 0.95;
+    assert!((lhs - v).abs() < 4.0 * sig && (rhs - (1.0 - 0.5 * v)).abs() < 4.0 * sig, "lhs {lhs} rhs {rhs} σ {sig}");
+    assert!(b["violation_sigma"].as_f64().unwrap() > 5.0, "{b}");
+}

@@ -48,10 +48,26 @@ pub fn install_signal_handler() {
     #[cfg(unix)]
     tagsieve::guard::install_sigbus_handler();
     let _ = ctrlc::set_handler(|| {
-        tagsieve::output::atomic::cleanup_all();
         eprintln!("tagsieve: interrupted; no output was written");
-        std::process::exit(130);
+        tagsieve::output::atomic::cleanup_all();
+        exit_now(130);
     });
+}
+
+/// End the process at once, without atexit handlers: the HDF5 library's handler tears the
+/// library down and must not run while another thread is still inside it writing a file.
+#[cfg(unix)]
+fn exit_now(code: i32) -> ! {
+    extern "C" {
+        fn _exit(status: i32) -> !;
+    }
+    // SAFETY: _exit only ends the process; it touches no Rust state.
+    unsafe { _exit(code) }
+}
+
+#[cfg(not(unix))]
+fn exit_now(code: i32) -> ! {
+    std::process::exit(code)
 }
 
 /// Print an error as one readable line (plus a hint line) and return its exit code.

@@ -1,14 +1,34 @@
 //! Atomic writes: every output is written to a temporary file in the target directory
 //! and renamed into place only when complete. Temporaries are removed on error, on drop
-//! and (through [`cleanup_all`]) from the Ctrl-C/SIGTERM handler; each is also on the
-//! SIGBUS guard's lock-free list ([`crate::guard`]), which unlinks it from a signal handler.
+//! and (through [`cleanup_all`]) from the Ctrl-C/SIGTERM handler. An [`OutputBatch`] holds
+//! the renames of a multi-file job (a simulated run) until the whole job is done. Each
+//! temporary being written is also on the SIGBUS guard's lock-free list ([`crate::guard`]),
+//! which unlinks it from a signal handler.
 
 use crate::{Error, Result};
+use std::cell::RefCell;
 use std::path::{Path, PathBuf};
-use std::sync::Mutex;
+use std::sync::{Mutex, MutexGuard};
 
-/// Temporary paths of outputs still being written, for the signal handler.
-static PENDING: Mutex<Vec<PathBuf>> = Mutex::new(Vec::new());
+/// Temporary paths of outputs still being written (or finished but held by a batch), and
+/// whether the process is being interrupted. Creating, renaming and cleaning up all happen
+/// under this one lock, so no temporary escapes the signal handler and no output is renamed
+/// into place once it has started.
+static PENDING: Mutex<Pending> = Mutex::new(Pending { temps: Vec::new(), interrupted: false });
+
+struct Pending {
+    temps: Vec<PathBuf>,
+    interrupted: bool,
+}
+
+fn pending() -> MutexGuard<'static, Pending> {
+    PENDING.lock().unwrap_or_else(|p| p.into_inner())
+}
+
+thread_local! {
+    /// (temporary, final) renames held back by this thread's open [`OutputBatch`].
+    static BATCH: RefCell<Option<Vec<(PathBuf, PathBuf)>>> = const { RefCell::new(None) };
+}
 
 /// An output being written: a temporary file beside `final_path`.
 #[derive(Debug)]
@@ -16,7 +36,7 @@ pub struct AtomicOutput {
     final_path: PathBuf,
     temp_path: PathBuf,
     committed: bool,
-    /// Keeps the temporary on the SIGBUS handler's unlink list until commit or drop.
+    /// Keeps the temporary on the SIGBUS guard's unlink list until commit or drop.
     #[cfg(unix)]
     _guard: crate::guard::TempToken,
 }
@@ -43,13 +63,17 @@ impl AtomicOutput {
             return Err(Error::OutputExists(final_path.to_path_buf()));
         }
         let stem = final_path.file_name().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default();
+        let mut p = pending();
+        if p.interrupted {
+            return Err(Error::Interrupted);
+        }
         let tmp = tempfile::Builder::new()
             .prefix(&format!(".{stem}."))
             .suffix(".partial")
             .tempfile_in(&dir)
             .map_err(|e| Error::io(final_path, e))?;
         let (_file, temp_path) = tmp.keep().map_err(|e| Error::io(final_path, e.error))?;
-        PENDING.lock().unwrap_or_else(|p| p.into_inner()).push(temp_path.clone());
+        p.temps.push(temp_path.clone());
         Ok(AtomicOutput {
             final_path: final_path.to_path_buf(),
             #[cfg(unix)]
@@ -68,14 +92,23 @@ impl AtomicOutput {
         &self.final_path
     }
 
-    /// Flush the temporary to disk and rename it to the final name.
+    /// Flush the temporary to disk and rename it to the final name (or, inside an
+    /// [`OutputBatch`] on this thread, leave the rename to the batch).
     pub fn commit(mut self) -> Result<()> {
         let f = std::fs::OpenOptions::new().read(true).open(&self.temp_path).map_err(|e| Error::io(&self.temp_path, e))?;
         f.sync_all().map_err(|e| Error::io(&self.final_path, e))?;
         set_readable(&self.temp_path);
-        std::fs::rename(&self.temp_path, &self.final_path).map_err(|e| Error::io(&self.final_path, e))?;
+        let held = BATCH.with(|b| match b.borrow_mut().as_mut() {
+            Some(v) => {
+                v.push((self.temp_path.clone(), self.final_path.clone()));
+                true
+            }
+            None => false,
+        });
+        if !held {
+            rename_into_place(&self.temp_path, &self.final_path)?;
+        }
         self.committed = true;
-        forget_pending(&self.temp_path);
         Ok(())
     }
 }
@@ -101,15 +134,83 @@ fn set_readable(p: &Path) {
 }
 
 fn forget_pending(p: &Path) {
-    let mut v = PENDING.lock().unwrap_or_else(|p| p.into_inner());
-    v.retain(|q| q != p);
+    pending().temps.retain(|q| q != p);
 }
 
-/// Remove every temporary output registered by this process (called from the signal handler).
+/// Rename a finished temporary into place, unless an interruption has begun.
+fn rename_into_place(temp: &Path, final_path: &Path) -> Result<()> {
+    let mut p = pending();
+    if p.interrupted {
+        return Err(Error::Interrupted);
+    }
+    std::fs::rename(temp, final_path).map_err(|e| Error::io(final_path, e))?;
+    p.temps.retain(|q| q != temp);
+    Ok(())
+}
+
+/// Remove every temporary output registered by this process and refuse any further output
+/// (called from the signal handler). A temporary that a writer re-creates by name in the
+/// moment between this call and the process exit can survive; so can any temporary of a
+/// process killed with SIGKILL (`.NAME.*.partial` beside the output: safe to delete).
 pub fn cleanup_all() {
-    let v = PENDING.lock().unwrap_or_else(|p| p.into_inner());
-    for p in v.iter() {
-        let _ = std::fs::remove_file(p);
+    let mut p = pending();
+    p.interrupted = true;
+    for t in p.temps.iter() {
+        let _ = std::fs::remove_file(t);
+    }
+}
+
+/// Renames of a multi-file job held back until [`OutputBatch::commit`]: outputs finished
+/// while the batch is open on this thread stay temporaries (removed on interrupt, error or
+/// drop), so an interrupted job leaves none of its files under their final names.
+#[derive(Debug)]
+pub struct OutputBatch {
+    /// False for a batch opened inside another one (it leaves the renames to the outer).
+    owner: bool,
+    _not_send: std::marker::PhantomData<*const ()>,
+}
+
+impl OutputBatch {
+    pub fn begin() -> Self {
+        let owner = BATCH.with(|b| {
+            let mut b = b.borrow_mut();
+            let fresh = b.is_none();
+            if fresh {
+                *b = Some(Vec::new());
+            }
+            fresh
+        });
+        OutputBatch { owner, _not_send: std::marker::PhantomData }
+    }
+
+    /// Rename every held output into place, in the order they were finished.
+    pub fn commit(self) -> Result<()> {
+        if !self.owner {
+            return Ok(());
+        }
+        let held = BATCH.with(|b| b.borrow_mut().take()).unwrap_or_default();
+        for (k, (temp, final_path)) in held.iter().enumerate() {
+            if let Err(e) = rename_into_place(temp, final_path) {
+                for (rest, _) in &held[k..] {
+                    let _ = std::fs::remove_file(rest);
+                    forget_pending(rest);
+                }
+                return Err(e);
+            }
+        }
+        Ok(())
+    }
+}
+
+impl Drop for OutputBatch {
+    fn drop(&mut self) {
+        if !self.owner {
+            return;
+        }
+        for (temp, _) in BATCH.with(|b| b.borrow_mut().take()).unwrap_or_default() {
+            let _ = std::fs::remove_file(&temp);
+            forget_pending(&temp);
+        }
     }
 }
 
@@ -139,6 +240,25 @@ mod tests {
         drop(o);
         assert!(!t.exists());
         assert_eq!(std::fs::read_dir(d.path()).unwrap().count(), 1);
+    }
+
+    #[test]
+    fn batch_holds_renames_until_commit_and_drop_removes_them() {
+        let d = tempfile::tempdir().unwrap();
+        let (p, q) = (d.path().join("a.sieve"), d.path().join("run.toml"));
+        let batch = OutputBatch::begin();
+        write_bytes(&p, b"a", false).unwrap();
+        write_bytes(&q, b"b", false).unwrap();
+        assert!(!p.exists() && !q.exists(), "nothing under a final name before the batch ends");
+        assert_eq!(std::fs::read_dir(d.path()).unwrap().count(), 2, "two held temporaries");
+        batch.commit().unwrap();
+        assert_eq!((std::fs::read(&p).unwrap(), std::fs::read(&q).unwrap()), (b"a".to_vec(), b"b".to_vec()));
+
+        let e = tempfile::tempdir().unwrap();
+        let batch = OutputBatch::begin();
+        write_bytes(&e.path().join("x"), b"x", false).unwrap();
+        drop(batch);
+        assert_eq!(std::fs::read_dir(e.path()).unwrap().count(), 0, "an abandoned batch leaves nothing");
     }
 
     #[test]

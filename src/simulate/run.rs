@@ -142,6 +142,8 @@ pub fn write_run(cfg: &RunConfig, out_dir: &Path, force: bool, progress: &Progre
     let manifest = cfg.manifest(out_dir);
     let manifest_path = out_dir.join(MANIFEST_FILE);
     check_outputs(cfg, out_dir, &manifest_path, force)?;
+    // All files appear together at the end: an interrupted or failed run leaves none.
+    let batch = crate::output::atomic::OutputBatch::begin();
     let layout = RecordLayout::from_spec(RECORDS_LAYOUT_SPEC)?;
     let mut blocks = Vec::with_capacity(cfg.blocks.len());
     for (k, plan) in cfg.blocks.iter().enumerate() {
@@ -160,6 +162,7 @@ pub fn write_run(cfg: &RunConfig, out_dir: &Path, force: bool, progress: &Progre
         });
     }
     manifest.save(&manifest_path, force)?;
+    batch.commit()?;
     progress.finish();
     let total_tags = blocks.iter().flat_map(|b| b.tags_per_channel.values()).sum();
     Ok(RunSummary { manifest: manifest_path, blocks, total_tags })
