@@ -10,6 +10,8 @@ pub mod analysis;
 pub mod demo;
 pub mod engine;
 pub mod error;
+#[cfg(unix)]
+pub mod guard;
 pub mod manifest;
 pub mod output;
 pub mod pipeline;

@@ -63,6 +63,7 @@ pub struct ChshOutcome {
 pub fn run(args: Args, g: &Global) -> Result<()> {
     args.out.precheck()?;
     let m = Manifest::load(&args.manifest)?;
+    check_chsh_blocks(&m, &args.manifest)?;
     let mut overrides = match &args.delays {
         Some(p) => Delays::load(p)?,
         None => Delays::default(),
@@ -108,6 +109,28 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     }
     if !args.out.to_stdout() {
         print(&outcome, g);
+    }
+    Ok(())
+}
+
+/// Two Alice and two Bob settings declare a CHSH set: each of the four setting pairs needs
+/// a block, else nothing could be computed. The line given is the end of the file, where
+/// the missing [[block]] table would go.
+fn check_chsh_blocks(m: &Manifest, path: &std::path::Path) -> Result<()> {
+    if m.settings.alice.len() != 2 || m.settings.bob.len() != 2 {
+        return Ok(());
+    }
+    for a in m.settings.alice.keys() {
+        for b in m.settings.bob.keys() {
+            if !m.blocks.iter().any(|k| &k.alice == a && &k.bob == b) {
+                let line = std::fs::read_to_string(path).map_or(1, |t| t.lines().count().max(1));
+                let message = format!(
+                    "missing block: the settings form a CHSH set, but no [[block]] has alice = {a:?} and bob = {b:?}; \
+                     CHSH needs a block for each of the four setting pairs"
+                );
+                return Err(Error::Config { path: path.to_path_buf(), line, message });
+            }
+        }
     }
     Ok(())
 }

@@ -42,8 +42,11 @@ pub fn configure_threads(g: &Global) {
     }
 }
 
-/// Ctrl-C / SIGTERM: remove registered temporary outputs, then exit 130.
+/// Ctrl-C / SIGTERM: remove registered temporary outputs, then exit 130. SIGBUS from a
+/// mapped input that shrank underneath us: a fixed message, temporaries unlinked, exit 1.
 pub fn install_signal_handler() {
+    #[cfg(unix)]
+    tagsieve::guard::install_sigbus_handler();
     let _ = ctrlc::set_handler(|| {
         eprintln!("tagsieve: interrupted; no output was written");
         tagsieve::output::atomic::cleanup_all();

@@ -1,7 +1,9 @@
 //! Atomic writes: every output is written to a temporary file in the target directory
 //! and renamed into place only when complete. Temporaries are removed on error, on drop
 //! and (through [`cleanup_all`]) from the Ctrl-C/SIGTERM handler. An [`OutputBatch`] holds
-//! the renames of a multi-file job (a simulated run) until the whole job is done.
+//! the renames of a multi-file job (a simulated run) until the whole job is done. Each
+//! temporary being written is also on the SIGBUS guard's lock-free list ([`crate::guard`]),
+//! which unlinks it from a signal handler.
 
 use crate::{Error, Result};
 use std::cell::RefCell;
@@ -34,6 +36,9 @@ pub struct AtomicOutput {
     final_path: PathBuf,
     temp_path: PathBuf,
     committed: bool,
+    /// Keeps the temporary on the SIGBUS guard's unlink list until commit or drop.
+    #[cfg(unix)]
+    _guard: crate::guard::TempToken,
 }
 
 impl AtomicOutput {
@@ -69,7 +74,13 @@ impl AtomicOutput {
             .map_err(|e| Error::io(final_path, e))?;
         let (_file, temp_path) = tmp.keep().map_err(|e| Error::io(final_path, e.error))?;
         p.temps.push(temp_path.clone());
-        Ok(AtomicOutput { final_path: final_path.to_path_buf(), temp_path, committed: false })
+        Ok(AtomicOutput {
+            final_path: final_path.to_path_buf(),
+            #[cfg(unix)]
+            _guard: crate::guard::register_temp(&temp_path),
+            temp_path,
+            committed: false,
+        })
     }
 
     /// Where the writer puts its bytes.

@@ -15,7 +15,7 @@ impl Writer for CsvWriter {
     fn write(&self, doc: &Document, dest: &Path) -> Result<()> {
         let f = std::fs::File::create(dest).map_err(|e| Error::io(dest, e))?;
         let mut out = std::io::BufWriter::new(f);
-        write_to(doc, &mut out).and_then(|()| out.flush().map_err(|e| Error::io(dest, e)))
+        write_to(doc, &mut out).and_then(|()| out.flush().map_err(|e| Error::io(dest, e))).map_err(|e| super::name_sink(e, dest))
     }
 
     fn can_stdout(&self) -> bool {

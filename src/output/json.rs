@@ -17,7 +17,7 @@ impl Writer for JsonWriter {
     fn write(&self, doc: &Document, dest: &Path) -> Result<()> {
         let f = std::fs::File::create(dest).map_err(|e| Error::io(dest, e))?;
         let mut out = std::io::BufWriter::new(f);
-        write_to(doc, &mut out)?;
+        write_to(doc, &mut out).map_err(|e| super::name_sink(e, dest))?;
         out.flush().map_err(|e| Error::io(dest, e))
     }
 

@@ -234,6 +234,16 @@ pub fn write_with(doc: &Document, path: &Path, writer: &dyn Writer, force: bool)
     }
 }
 
+/// Sink-agnostic writers name their sink `<csv>` / `<json>`; a file writer puts its
+/// destination there instead, so a full disk names the file.
+pub(crate) fn name_sink(e: Error, dest: &Path) -> Error {
+    match e {
+        Error::Io { path, source } if path.to_string_lossy().starts_with('<') => Error::Io { path: dest.to_path_buf(), source },
+        Error::Output { path, message } if path.to_string_lossy().starts_with('<') => Error::Output { path: dest.to_path_buf(), message },
+        other => other,
+    }
+}
+
 /// Writers see the temporary path; the user should see the name they asked for.
 fn rename_error_path(e: Error, temp: &Path, path: &Path) -> Error {
     match e {

@@ -54,7 +54,7 @@ pub fn import(sources: &[Box<dyn TagSource>], out: &Path, force: bool, tick: Tic
                     let first = sources[spill.source].file().path;
                     return Err(Error::Usage(format!("channel {} appears twice: in {} and in {}", c.channel, first.display(), s.file().path.display())));
                 }
-                write_u64s_le(&mut spill.w, &c.times_ps).map_err(|e| Error::io(spill.file.temp_path(), e))?;
+                write_u64s_le(&mut spill.w, &c.times_ps).map_err(|e| Error::io(out, e))?;
                 spill.count += c.len() as u64;
                 progress.inc(c.len() as u64);
             }
@@ -79,7 +79,7 @@ fn assemble(out: &Path, force: bool, tick: Tick, spills: BTreeMap<Channel, Spill
     let table: Vec<(Channel, String, u64)> = spills.iter().map(|(&c, s)| (c, s.name.clone(), s.count)).collect();
     let mut w = ContainerWriter::create(out, force, &info, &table)?;
     for (_, mut s) in spills {
-        s.w.flush().map_err(|e| Error::io(s.file.temp_path(), e))?;
+        s.w.flush().map_err(|e| Error::io(out, e))?;
         drop(s.w);
         copy_spill(s.file.temp_path(), &mut w)?;
     }

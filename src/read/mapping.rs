@@ -16,6 +16,9 @@ pub struct Mapping {
     path: PathBuf,
     size_bytes: u64,
     mtime: Option<SystemTime>,
+    /// Keeps the mapped range on the SIGBUS guard's list (dropped before the map).
+    #[cfg(unix)]
+    _guard: Option<crate::guard::MapToken>,
     backing: Backing,
 }
 
@@ -45,27 +48,45 @@ impl Mapping {
     /// The caller promises that no process truncates, shrinks or rewrites the file while
     /// the mapping (or any slice borrowed from it) is alive. Truncation would make page
     /// accesses fault (SIGBUS); rewriting would change bytes we already validated. Appending
-    /// is harmless (we only look at the first `size_bytes` recorded here).
+    /// is harmless (we only look at the first `size_bytes` recorded here). The mapped range
+    /// is registered with [`crate::guard`], so when the CLI has installed its SIGBUS handler
+    /// a broken promise ends the process with a clear message and exit code 1, not a crash.
     pub unsafe fn open_mapped(path: &Path) -> Result<Self> {
         let (file, size_bytes, mtime) = open_regular(path)?;
         if size_bytes == 0 {
             // Zero-length mappings are an error on some systems; nothing to map anyway.
-            return Ok(Mapping { path: path.to_path_buf(), size_bytes, mtime, backing: Backing::Buffered(file) });
+            return Ok(Mapping::new(path, size_bytes, mtime, Backing::Buffered(file)));
         }
         // SAFETY: forwarded to our caller, see above.
         let map = match unsafe { Mmap::map(&file) } {
             Ok(m) => m,
-            Err(_) => return Ok(Mapping { path: path.to_path_buf(), size_bytes, mtime, backing: Backing::Buffered(file) }),
+            Err(_) => return Ok(Mapping::new(path, size_bytes, mtime, Backing::Buffered(file))),
         };
         #[cfg(unix)]
         let _ = map.advise(memmap2::Advice::Sequential);
-        Ok(Mapping { path: path.to_path_buf(), size_bytes, mtime, backing: Backing::Mapped(map) })
+        let mut m = Mapping::new(path, size_bytes, mtime, Backing::Mapped(map));
+        #[cfg(unix)]
+        if let Backing::Mapped(map) = &m.backing {
+            m._guard = Some(crate::guard::register_mapping(map.as_ptr(), map.len(), path));
+        }
+        Ok(m)
     }
 
     /// Open `path` for positioned buffered reads (no mapping; safe on files that change).
     pub fn open_buffered(path: &Path) -> Result<Self> {
         let (file, size_bytes, mtime) = open_regular(path)?;
-        Ok(Mapping { path: path.to_path_buf(), size_bytes, mtime, backing: Backing::Buffered(file) })
+        Ok(Mapping::new(path, size_bytes, mtime, Backing::Buffered(file)))
+    }
+
+    fn new(path: &Path, size_bytes: u64, mtime: Option<SystemTime>, backing: Backing) -> Self {
+        Mapping {
+            path: path.to_path_buf(),
+            size_bytes,
+            mtime,
+            #[cfg(unix)]
+            _guard: None,
+            backing,
+        }
     }
 
     pub fn path(&self) -> &Path {
@@ -104,7 +125,7 @@ impl Mapping {
             Backing::Mapped(m) => Ok(Cow::Borrowed(&m[offset as usize..end as usize])),
             Backing::Buffered(f) => {
                 let mut buf = vec![0u8; len];
-                read_exact_at(f, &mut buf, offset).map_err(|e| Error::io(&self.path, e))?;
+                read_exact_at(f, &mut buf, offset).map_err(|e| self.read_error(e))?;
                 Ok(Cow::Owned(buf))
             }
         }
@@ -120,6 +141,15 @@ impl Mapping {
         }
     }
 
+    /// A short read inside the size recorded at open means the file shrank underneath us.
+    fn read_error(&self, e: std::io::Error) -> Error {
+        if e.kind() != std::io::ErrorKind::UnexpectedEof {
+            return Error::io(&self.path, e);
+        }
+        let after = std::fs::metadata(&self.path).map_or(0, |m| m.len());
+        Error::ChangedUnderneath { path: self.path.clone(), before: self.size_bytes, after }
+    }
+
     /// Compare the file's size and modification time with those recorded at open.
     pub fn check_unchanged(&self) -> Result<()> {
         let meta = std::fs::metadata(&self.path).map_err(|e| Error::io(&self.path, e))?;
@@ -132,14 +162,31 @@ impl Mapping {
 }
 
 /// Open a regular file, refusing directories and other non-files with a clear error.
+/// The type is checked with stat before opening: opening a FIFO would block until a
+/// writer appears.
 fn open_regular(path: &Path) -> Result<(File, u64, Option<SystemTime>)> {
-    let file = File::open(path).map_err(|e| Error::io(path, e))?;
-    let meta = file.metadata().map_err(|e| Error::io(path, e))?;
+    let meta = std::fs::metadata(path).map_err(|e| open_error(path, e))?;
     if meta.is_dir() {
         let e = std::io::Error::new(std::io::ErrorKind::IsADirectory, "is a directory, expected a tag file");
         return Err(Error::io(path, e));
     }
+    if !meta.is_file() {
+        let what = "is not a regular file (a FIFO, socket or device), expected a tag file; copy the data into a file first";
+        return Err(Error::io(path, std::io::Error::new(std::io::ErrorKind::InvalidInput, what)));
+    }
+    let file = File::open(path).map_err(|e| open_error(path, e))?;
+    let meta = file.metadata().map_err(|e| Error::io(path, e))?;
     Ok((file, meta.len(), meta.modified().ok()))
+}
+
+/// Say what was expected for the two common failures; keep the OS text otherwise.
+fn open_error(path: &Path, e: std::io::Error) -> Error {
+    let expected = match e.kind() {
+        std::io::ErrorKind::NotFound => "expected an existing tag file",
+        std::io::ErrorKind::PermissionDenied => "expected a file this user may read",
+        _ => return Error::io(path, e),
+    };
+    Error::io(path, std::io::Error::new(e.kind(), format!("{e}, {expected}")))
 }
 
 #[cfg(unix)]

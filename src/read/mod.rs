@@ -101,11 +101,22 @@ fn open_one(arg: &str, layout: Option<&layout::RecordLayout>, opts: ReadOptions)
     match layout {
         Some(l) => Ok(Box::new(records::Records::from_mapping(map, l.clone(), opts)?)),
         None => Err(Error::Usage(format!(
-            "{arg}: not a container file (no {} magic bytes) and no --layout given; \
+            "{arg}: byte offset 0: found {}: not a container file (its {} magic is {:02x?}) and no --layout given; \
              give per-channel arrays as CH=PATH, or describe the records with --layout FILE|SPEC",
-            container::EXTENSION
+            first_bytes(&map)?,
+            container::EXTENSION,
+            container::MAGIC
         ))),
     }
+}
+
+/// "first bytes [..]" (up to 8) or "an empty file (0 bytes)", for messages.
+fn first_bytes(map: &mapping::Mapping) -> Result<String> {
+    let n = map.size_bytes().min(8) as usize;
+    if n == 0 {
+        return Ok("an empty file (0 bytes)".into());
+    }
+    Ok(format!("first bytes {:02x?}", &*map.bytes(0, n)?))
 }
 
 fn claim_channel(owner: &mut BTreeMap<Channel, PathBuf>, ch: Channel, path: &Path) -> Result<()> {

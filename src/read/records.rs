@@ -323,7 +323,12 @@ impl<'a> Demuxer<'a> {
             format!("time counter {raw} ticks after {} ticks", self.prev_raw),
             format!("≥ {} ticks (records in time order; the layout has no wrap)", self.prev_raw),
         );
-        Err(self.with_swap_hint(e, bytes, i))
+        match wrap_guess(self.prev_raw, raw) {
+            Some(bits) => Err(e.with_hint(format!(
+                "the counter fell from the top to the bottom of a {bits}-bit range: it looks like it wraps at 2^{bits}; add wrap={bits} to the layout"
+            ))),
+            None => Err(self.with_swap_hint(e, bytes, i)),
+        }
     }
 
     #[cold]
@@ -418,6 +423,15 @@ fn advise_huge_pages(v: &mut Vec<u64>) {
     }
     #[cfg(not(target_os = "linux"))]
     let _ = v;
+}
+
+/// A step from `prev` down to `raw` that looks like a counter wrap: `prev` in the top
+/// eighth of the smallest power-of-two range holding it (2^B, B ≥ 8) and `raw` in the
+/// bottom eighth. Returns B.
+fn wrap_guess(prev: u64, raw: u64) -> Option<u32> {
+    let bits = 64 - prev.leading_zeros();
+    let eighth = 1u64.checked_shl(bits)?.checked_shr(3)?;
+    (bits >= 8 && prev >= 7 * eighth && raw < eighth).then_some(bits)
 }
 
 /// Write interleaved records (format b) in time order with `layout` (ps → ticks by the
@@ -553,6 +567,16 @@ mod tests {
         std::fs::write(&p, &bytes).unwrap();
         let r = Records::open(&p, layout("rec=8,time=0:4,chan=4:1,tick_ps=1,wrap=12"), ReadOptions::default()).unwrap();
         assert_eq!(&*r.channels().unwrap()[0].times_ps, &[4080, 4112]);
+    }
+
+    #[test]
+    fn wrap_guess_needs_top_then_bottom_of_a_range() {
+        assert_eq!(wrap_guess(65_500, 20), Some(16)); // just below 2^16, then near 0
+        assert_eq!(wrap_guess(u32::MAX as u64 - 5, 3), Some(32));
+        assert_eq!(wrap_guess(40_000, 20), None); // 40 000 < 7/8 · 2^16
+        assert_eq!(wrap_guess(65_500, 30_000), None);
+        assert_eq!(wrap_guess(250, 3), Some(8));
+        assert_eq!(wrap_guess(120, 3), None); // 7 bits: too small a range to tell
     }
 
     #[test]
