@@ -40,6 +40,13 @@ enum Command {
 }
 
 fn main() -> ExitCode {
+    // A closed pipe on stdout (`tagsieve inspect --json | head`) ends the process quietly,
+    // as for other Unix filters, instead of a panic in println!.
+    #[cfg(unix)]
+    // SAFETY: restoring the default disposition of SIGPIPE before any thread starts.
+    unsafe {
+        libc::signal(libc::SIGPIPE, libc::SIG_DFL);
+    }
     let cli = match Cli::try_parse() {
         Ok(c) => c,
         Err(e) => {
