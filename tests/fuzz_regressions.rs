@@ -84,6 +84,8 @@ fn huge_field_offsets_are_refused_not_wrapped() {
         let e = tagsieve::read::layout::RecordLayout::from_spec(spec).unwrap_err().to_string();
         assert!(e.contains(what) && e.contains("wider than"), "{name}: {e}");
     }
+    // The same through the 8-byte layout form (time offset 2^64 - 4).
+    assert_eq!(harness::records(&case("records", "structured_offset_overflow")), Outcome::Refused);
 }
 
 /// `wrap=` above u32::MAX used to be truncated (2^32 + 32 read as 32) and accepted.

@@ -84,13 +84,15 @@ pub fn spec_from_bytes(b: &[u8]) -> String {
     let time_width = if b[6] & 4 != 0 { 8 } else { 4 };
     let chan_width = [1, 2, 4, 3][(b[6] >> 3 & 3) as usize];
     let tick_fs = u16::from_le_bytes([b[4], b[5]]) as u64 + 1;
+    // Bits 6 and 7 put a field's offset just below u64::MAX (overflowing offset + width).
+    let offset = |v: u8, bit: u8| if b[6] & bit != 0 { u64::MAX - (v % 16) as u64 } else { (v % 40) as u64 };
     let mut spec = format!(
         "rec={},skip={},time={}:{time_width}:{},chan={}:{chan_width}:{},tick_ps={}.{:03}",
         b[0] % 40,
         b[1] % 32,
-        b[2] % 40,
+        offset(b[2], 64),
         endian(1),
-        b[3] % 40,
+        offset(b[3], 128),
         endian(2),
         tick_fs / 1000,
         tick_fs % 1000
