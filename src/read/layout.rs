@@ -216,7 +216,7 @@ impl RecordLayout {
                 "time" => time = Some(parse_field_spec(v).map_err(|m| usage(format!("time={v}: {m}")))?),
                 "chan" => chan = Some(parse_field_spec(v).map_err(|m| usage(format!("chan={v}: {m}")))?),
                 "tick_ps" => tick = Some(Tick::parse_ps(v).map_err(usage)?),
-                "wrap" => wrap = Some(num(v)? as u32),
+                "wrap" => wrap = Some(u32::try_from(num(v)?).map_err(|_| usage(format!("wrap={v}: expected at most 64 bits")))?),
                 _ => return Err(usage(format!("unknown key {k:?} (known: rec, skip, time, chan, tick_ps, wrap)"))),
             }
         }
@@ -262,11 +262,12 @@ impl RecordLayout {
             return Err(format!("channel field width {} bytes: expected 1, 2 or 4", self.channel.width_bytes));
         }
         for (name, f) in [("time", &self.time), ("channel", &self.channel)] {
-            if f.offset_bytes + f.width_bytes > self.record_bytes {
+            // checked: an offset near usize::MAX from a spec must not wrap round to "fits".
+            if f.offset_bytes.checked_add(f.width_bytes).is_none_or(|end| end > self.record_bytes) {
                 return Err(format!(
                     "{name} field (bytes {}..{}) is wider than the {}-byte record",
                     f.offset_bytes,
-                    f.offset_bytes + f.width_bytes,
+                    f.offset_bytes as u128 + f.width_bytes as u128,
                     self.record_bytes
                 ));
             }
