@@ -103,14 +103,7 @@ pub fn sweep_sources(
     let progress = Progress::bytes("sweep", total_bytes(sources), quiet);
     let block = if mode.streams(sources)? {
         let (span, channels, sweeps) = sweep::sweep_stream(chunks_with_progress(sources[0].as_ref(), &progress)?, cfg, windows_ps, criterion)?;
-        BlockTables {
-            label: label.into(),
-            span: Some(span),
-            singles: count::singles_rows(&channels, span),
-            delays_ps: channels.iter().map(|c| (c.channel, cfg.delays.get(c.channel))).collect(),
-            sweeps,
-            ..Default::default()
-        }
+        streamed_block(label, span, &channels, &cfg.delays, |b| b.sweeps = sweeps)
     } else {
         let tags = read::all_channels(sources)?;
         let sweeps = engine::sweep_block(&tags, cfg, windows_ps, criterion)?;
@@ -126,14 +119,7 @@ pub fn scan_sources(label: &str, sources: &[Box<dyn TagSource>], cfg: &ScanConfi
     let progress = Progress::bytes("scan", total_bytes(sources), quiet);
     let block = if mode.streams(sources)? {
         let (span, channels, scans) = scan::scan_stream(chunks_with_progress(sources[0].as_ref(), &progress)?, cfg)?;
-        BlockTables {
-            label: label.into(),
-            span: Some(span),
-            singles: count::singles_rows(&channels, span),
-            delays_ps: channels.iter().map(|c| (c.channel, cfg.delays.get(c.channel))).collect(),
-            scans,
-            ..Default::default()
-        }
+        streamed_block(label, span, &channels, &cfg.delays, |b| b.scans = scans)
     } else {
         let tags = read::all_channels(sources)?;
         let scans = engine::scan_block(&tags, cfg)?;
@@ -142,6 +128,25 @@ pub fn scan_sources(label: &str, sources: &[Box<dyn TagSource>], cfg: &ScanConfi
     progress.finish();
     check_unchanged(sources)?;
     Ok(block)
+}
+
+/// Span, singles and delays of a streamed block, plus what `fill` adds.
+fn streamed_block(
+    label: &str,
+    span: crate::engine::tables::BlockSpan,
+    channels: &[crate::engine::stream::ChannelSummary],
+    delays: &Delays,
+    fill: impl FnOnce(&mut BlockTables),
+) -> BlockTables {
+    let mut b = BlockTables {
+        label: label.into(),
+        span: Some(span),
+        singles: count::singles_rows(channels, span),
+        delays_ps: channels.iter().map(|c| (c.channel, delays.get(c.channel))).collect(),
+        ..Default::default()
+    };
+    fill(&mut b);
+    b
 }
 
 fn summary_block(label: &str, tags: &[crate::ChannelTags<'_>], delays: &Delays, fill: impl FnOnce(&mut BlockTables)) -> BlockTables {
