@@ -102,7 +102,8 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
 
     say(q, "simulating the Larch–Rowan link (4 blocks, CHSH settings)");
     let run = chsh_run(cfg);
-    let progress = Progress::items("simulate", 0, q);
+    let total_ms = (run.duration_s * 1e3) as u64 * run.blocks.len() as u64;
+    let progress = Progress::items("simulate ms", total_ms, q);
     let summary = simulate::write_run(&run, &dir.join("chsh-run"), true, &progress)?;
     progress.finish();
     let m = Manifest::load(&summary.manifest)?;

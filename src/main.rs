@@ -9,7 +9,14 @@ use std::process::ExitCode;
 ///
 /// Exit codes: 0 done; 1 runtime failure; 2 bad input or usage; 130 interrupted.
 #[derive(Parser, Debug)]
-#[command(name = "tagsieve", version, about, long_about = None, propagate_version = true)]
+#[command(
+    name = "tagsieve",
+    version,
+    about,
+    long_about = None,
+    propagate_version = true,
+    after_help = "Exit codes: 0 done; 1 runtime failure (I/O, full disk, input changed while read); 2 bad input or usage; 130 interrupted (no output left behind)."
+)]
 struct Cli {
     #[command(flatten)]
     global: cli::Global,
