@@ -209,13 +209,7 @@ impl ScanFigure<'_> {
                 .label(format!("FWHM {:.1} ps", p.fwhm_ps))
                 .legend(line_key(SAGE));
         }
-        chart
-            .configure_series_labels()
-            .position(SeriesLabelPosition::UpperRight)
-            .background_style(WHITE.mix(0.9))
-            .border_style(GRAPHITE)
-            .label_font((FONT, 15))
-            .draw()?;
+        draw_legend(&mut chart, SeriesLabelPosition::UpperRight)?;
         Ok(())
     }
 }
@@ -274,12 +268,7 @@ impl Figure for SweepFigure<'_> {
         c.draw_series(DashedLineSeries::new(vec![(rec, 0.0), (rec, ymax)], 8, 5, CLAY.stroke_width(2)))?
             .label(rec_label)
             .legend(line_key(CLAY));
-        c.configure_series_labels()
-            .position(SeriesLabelPosition::LowerRight)
-            .background_style(WHITE.mix(0.9))
-            .border_style(GRAPHITE)
-            .label_font((FONT, 15))
-            .draw()?;
+        draw_legend(&mut c, SeriesLabelPosition::LowerRight)?;
 
         let car: Vec<(f64, f64)> =
             xs.iter().zip(&s.rows).filter(|(_, r)| r.car.is_finite()).map(|(x, r)| (*x, r.car)).collect();
@@ -300,12 +289,7 @@ impl Figure for SweepFigure<'_> {
         c.draw_series(LineSeries::new(car.clone(), SAGE.stroke_width(2)))?.label("CAR").legend(line_key(SAGE));
         c.draw_series(car.iter().map(|p| Circle::new(*p, 3, SAGE.filled())))?;
         c.draw_series(DashedLineSeries::new(vec![(rec, 0.0), (rec, cmax)], 8, 5, CLAY.stroke_width(2)))?;
-        c.configure_series_labels()
-            .position(SeriesLabelPosition::UpperRight)
-            .background_style(WHITE.mix(0.9))
-            .border_style(GRAPHITE)
-            .label_font((FONT, 15))
-            .draw()?;
+        draw_legend(&mut c, SeriesLabelPosition::UpperRight)?;
         root.present()?;
         Ok(())
     }
@@ -379,13 +363,7 @@ impl Figure for CorrelationFigure<'_> {
             });
             chart.draw_series(model)?.label(format!("V·cos 2(α−β), V = {v:.3}")).legend(line_key(CLAY));
         }
-        chart
-            .configure_series_labels()
-            .position(SeriesLabelPosition::LowerRight)
-            .background_style(WHITE.mix(0.9))
-            .border_style(GRAPHITE)
-            .label_font((FONT, 15))
-            .draw()?;
+        draw_legend(&mut chart, SeriesLabelPosition::LowerRight)?;
         let mut lines = vec!["S = E(a,b) − E(a,b') + E(a',b) + E(a',b')".to_string(), s_line("raw", &r.raw)];
         if let Some(c) = &r.corrected {
             lines.push(s_line("acc.-corrected", c));
@@ -397,6 +375,21 @@ impl Figure for CorrelationFigure<'_> {
 }
 
 /// Points (x, y, σ) with vertical error bars in colour `c`, one legend entry.
+/// The legend box every figure uses, at `position`.
+fn draw_legend<'a, DB: DrawingBackend + 'a, CT: CoordTranslate>(chart: &mut ChartContext<'a, DB, CT>, position: SeriesLabelPosition) -> Drawn
+where
+    DB::ErrorType: 'static,
+{
+    chart
+        .configure_series_labels()
+        .position(position)
+        .background_style(WHITE.mix(0.9))
+        .border_style(GRAPHITE)
+        .label_font((FONT, 15))
+        .draw()?;
+    Ok(())
+}
+
 fn draw_points_with_bars<DB: DrawingBackend>(
     chart: &mut ChartContext<DB, Cartesian2d<plotters::coord::types::RangedCoordf64, plotters::coord::types::RangedCoordf64>>,
     pts: &[(f64, f64, f64)],
@@ -473,13 +466,7 @@ impl Figure for VisibilityFigure<'_> {
         let pts: Vec<(f64, f64, f64)> =
             self.data.iter().map(|p| (p.angle_deg, p.counts as f64, (p.counts as f64).sqrt())).collect();
         draw_points_with_bars(&mut chart, &pts, SLATE, "counts ± √N")?;
-        chart
-            .configure_series_labels()
-            .position(SeriesLabelPosition::UpperRight)
-            .background_style(WHITE.mix(0.9))
-            .border_style(GRAPHITE)
-            .label_font((FONT, 15))
-            .draw()?;
+        draw_legend(&mut chart, SeriesLabelPosition::UpperRight)?;
         let lines = [
             format!("V = {:.4} ± {:.4}", f.visibility.value, f.visibility.sigma),
             format!("θ0 = {:.2} ± {:.2} deg", f.phase_deg.value, f.phase_deg.sigma),
