@@ -177,7 +177,12 @@ fn lhv_counts(rng: &mut Rng, n: u64, alpha_deg: f64, beta_deg: f64) -> [u64; 4] 
         let lambda = rng.uniform() * PI;
         let x = (2.0 * (lambda - alpha_deg.to_radians())).cos() >= 0.0;
         let y = (2.0 * (lambda - beta_deg.to_radians())).cos() >= 0.0;
-        c[match (x, y) { (true, true) => 0, (true, false) => 1, (false, true) => 2, (false, false) => 3 }] += 1;
+        c[match (x, y) {
+            (true, true) => 0,
+            (true, false) => 1,
+            (false, true) => 2,
+            (false, false) => 3,
+        }] += 1;
     }
     c
 }
@@ -200,7 +205,13 @@ fn local_model_does_not_violate() {
         let d = (pc.angle_a_deg - pc.angle_b_deg).to_radians().abs();
         let d = if d > FRAC_PI_2 { PI - d } else { d };
         let e = 1.0 - 4.0 * d / PI;
-        assert!((pc.raw.e - e).abs() < 4.0 * pc.raw.sigma, "{}{}: {} vs triangle {e}", pc.label_a, pc.label_b, pc.raw.e);
+        assert!(
+            (pc.raw.e - e).abs() < 4.0 * pc.raw.sigma,
+            "{}{}: {} vs triangle {e}",
+            pc.label_a,
+            pc.label_b,
+            pc.raw.e
+        );
     }
 }
 
@@ -232,8 +243,10 @@ fn three_setting_form_from_polarization_blocks() {
     // Applied to −E (Convention::Correlated): violation by ½ at V = 1.
     let mut rng = Rng(0x5EED_0005);
     let angles = [(0.0, 30.0), (0.0, 60.0), (30.0, 60.0)];
-    let blocks: Vec<SettingCounts> =
-        angles.iter().map(|&(x, y)| block("a", "b", x, y, rng.multinomial4(10_000, quantum_probs(x, y, 1.0)))).collect();
+    let blocks: Vec<SettingCounts> = angles
+        .iter()
+        .map(|&(x, y)| block("a", "b", x, y, rng.multinomial4(10_000, quantum_probs(x, y, 1.0))))
+        .collect();
     let r = bell3::evaluate_blocks(&blocks, [0.0, 30.0, 60.0], Convention::Correlated, false).unwrap();
     assert!((r.margin.value - 0.5).abs() < 3.0 * r.margin.sigma, "{r:?}");
     assert!(r.violation_sigma > 20.0);
@@ -276,7 +289,7 @@ fn visibility_fit_recovers_parameters_and_sigmas() {
         let pts: Vec<AnglePoint> = (0..12)
             .map(|k| {
                 let th = 15.0 * k as f64;
-                let mean = a * (1.0 + v * (2.0 * (th - th0 as f64).to_radians()).cos());
+                let mean = a * (1.0 + v * (2.0 * (th - th0).to_radians()).cos());
                 AnglePoint { angle_deg: th, counts: rng.poisson(mean) }
             })
             .collect();
