@@ -143,6 +143,44 @@ fn accidental_correction_restores_the_signal_value() {
 }
 
 #[test]
+fn one_detector_per_side_rates() {
+    // One detector per side: each combination is its own run with its own live time; the
+    // rate in run (x, y) is R·P(x, y | α, β) with P from the formula above (CHSH 1969 /
+    // Cirel'son 1980 set-up), so E from rates must still give S = 2√2·V within 3σ,
+    // while E from the raw counts is biased by the unequal live times.
+    let (v, rate_hz) = (0.9, 4000.0);
+    let live_s = [2.0, 5.0, 3.0, 1.5];
+    let mut rng = Rng(0x5EED_0007);
+    let blocks: Vec<SettingCounts> = settings()
+        .iter()
+        .map(|&(la, lb, al, be)| {
+            let p = quantum_probs(al, be, v);
+            let mut b = block(la, lb, al, be, std::array::from_fn(|i| rng.poisson(rate_hz * p[i] * live_s[i])));
+            b.live_time_s = Some(live_s);
+            b
+        })
+        .collect();
+    let r = chsh::evaluate(&blocks).unwrap();
+    assert!(r.from_rates);
+    let p = r.raw.primary();
+    assert!((p.s - 2.0 * SQRT_2 * v).abs() < 3.0 * p.sigma, "S = {} ± {}", p.s, p.sigma);
+    let plain: Vec<SettingCounts> = blocks
+        .iter()
+        .cloned()
+        .map(|mut b| {
+            b.live_time_s = None;
+            b
+        })
+        .collect();
+    let biased = chsh::evaluate(&plain).unwrap().raw.primary().s;
+    assert!((biased - 2.0 * SQRT_2 * v).abs() > 10.0 * p.sigma, "counts alone should be biased: {biased}");
+    // Mixed input (live times on some pairs only) is refused.
+    let mut mixed = blocks.clone();
+    mixed[0].live_time_s = None;
+    assert!(chsh::evaluate(&mixed).is_err());
+}
+
+#[test]
 fn sigma_s_agrees_with_poisson_resampling() {
     // Monte-Carlo check of the analytic σ_S (common practice, no source): resample every
     // count as Poisson(observed) 2000 times; the spread of S must match within 10%.
@@ -177,7 +215,12 @@ fn lhv_counts(rng: &mut Rng, n: u64, alpha_deg: f64, beta_deg: f64) -> [u64; 4] 
         let lambda = rng.uniform() * PI;
         let x = (2.0 * (lambda - alpha_deg.to_radians())).cos() >= 0.0;
         let y = (2.0 * (lambda - beta_deg.to_radians())).cos() >= 0.0;
-        c[match (x, y) { (true, true) => 0, (true, false) => 1, (false, true) => 2, (false, false) => 3 }] += 1;
+        c[match (x, y) {
+            (true, true) => 0,
+            (true, false) => 1,
+            (false, true) => 2,
+            (false, false) => 3,
+        }] += 1;
     }
     c
 }
@@ -200,7 +243,13 @@ fn local_model_does_not_violate() {
         let d = (pc.angle_a_deg - pc.angle_b_deg).to_radians().abs();
         let d = if d > FRAC_PI_2 { PI - d } else { d };
         let e = 1.0 - 4.0 * d / PI;
-        assert!((pc.raw.e - e).abs() < 4.0 * pc.raw.sigma, "{}{}: {} vs triangle {e}", pc.label_a, pc.label_b, pc.raw.e);
+        assert!(
+            (pc.raw.e - e).abs() < 4.0 * pc.raw.sigma,
+            "{}{}: {} vs triangle {e}",
+            pc.label_a,
+            pc.label_b,
+            pc.raw.e
+        );
     }
 }
 
@@ -232,8 +281,10 @@ fn three_setting_form_from_polarization_blocks() {
     // Applied to −E (Convention::Correlated): violation by ½ at V = 1.
     let mut rng = Rng(0x5EED_0005);
     let angles = [(0.0, 30.0), (0.0, 60.0), (30.0, 60.0)];
-    let blocks: Vec<SettingCounts> =
-        angles.iter().map(|&(x, y)| block("a", "b", x, y, rng.multinomial4(10_000, quantum_probs(x, y, 1.0)))).collect();
+    let blocks: Vec<SettingCounts> = angles
+        .iter()
+        .map(|&(x, y)| block("a", "b", x, y, rng.multinomial4(10_000, quantum_probs(x, y, 1.0))))
+        .collect();
     let r = bell3::evaluate_blocks(&blocks, [0.0, 30.0, 60.0], Convention::Correlated, false).unwrap();
     assert!((r.margin.value - 0.5).abs() < 3.0 * r.margin.sigma, "{r:?}");
     assert!(r.violation_sigma > 20.0);
@@ -276,7 +327,7 @@ fn visibility_fit_recovers_parameters_and_sigmas() {
         let pts: Vec<AnglePoint> = (0..12)
             .map(|k| {
                 let th = 15.0 * k as f64;
-                let mean = a * (1.0 + v * (2.0 * (th - th0 as f64).to_radians()).cos());
+                let mean = a * (1.0 + v * (2.0 * (th - th0).to_radians()).cos());
                 AnglePoint { angle_deg: th, counts: rng.poisson(mean) }
             })
             .collect();

@@ -59,7 +59,17 @@ pub fn evaluate(e_ab: Estimate, e_ac: Estimate, e_bc: Estimate, convention: Conv
     let sigma = quadrature(&[e_ab.sigma, e_ac.sigma, e_bc.sigma]);
     let margin = Estimate { value: lhs - rhs, sigma };
     let violation_sigma = margin.value / sigma;
-    Bell3Result { convention, e_ab, e_ac, e_bc, lhs, rhs, margin, violation_sigma, p_value: p_one_sided(violation_sigma) }
+    Bell3Result {
+        convention,
+        e_ab,
+        e_ac,
+        e_bc,
+        lhs,
+        rhs,
+        margin,
+        violation_sigma,
+        p_value: p_one_sided(violation_sigma),
+    }
 }
 
 /// Angles equal modulo 180° (an analyzer setting) within 1e-6°.

@@ -248,15 +248,12 @@ fn validate(c: &SettingCounts) -> Result<()> {
 fn order_pairs(blocks: &[SettingCounts]) -> Result<[&SettingCounts; 4]> {
     let mut out: [Option<&SettingCounts>; 4] = [None; 4];
     for b in blocks {
-        let idx = PAIR_ORDER
-            .iter()
-            .position(|(la, lb)| b.label_a == *la && b.label_b == *lb)
-            .ok_or_else(|| {
-                Error::Usage(format!(
-                    "setting pair ({},{}): labels must be a or a' for side A and b or b' for side B",
-                    b.label_a, b.label_b
-                ))
-            })?;
+        let idx = PAIR_ORDER.iter().position(|(la, lb)| b.label_a == *la && b.label_b == *lb).ok_or_else(|| {
+            Error::Usage(format!(
+                "setting pair ({},{}): labels must be a or a' for side A and b or b' for side B",
+                b.label_a, b.label_b
+            ))
+        })?;
         if out[idx].replace(b).is_some() {
             return Err(Error::Usage(format!("setting pair ({},{}) given twice", b.label_a, b.label_b)));
         }
@@ -330,9 +327,9 @@ mod tests {
         // Closed form 4·N_same·N_diff/N³ for independent Poisson counts (module doc derivation;
         // the same result follows from the binomial variance of E = 2p − 1, common practice).
         let c = correlation(&block("a", "b", [400, 100, 50, 450]), false).unwrap();
-        let (same, diff, n) = (850.0, 150.0, 1000.0);
+        let (same, diff, n): (f64, f64, f64) = (850.0, 150.0, 1000.0);
         assert!((c.e - 0.7).abs() < 1e-15);
-        assert!((c.sigma - (4.0 * same * diff / (n * n * n) as f64).sqrt()).abs() < 1e-15);
+        assert!((c.sigma - (4.0 * same * diff / (n * n * n)).sqrt()).abs() < 1e-15);
     }
 
     #[test]

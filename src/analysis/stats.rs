@@ -52,7 +52,11 @@ pub fn gamma_quantile(shape: f64, p: f64) -> f64 {
     let mut x = if guess.is_finite() { guess.clamp(lo, hi) } else { 0.5 * (lo + hi) };
     for _ in 0..200 {
         let f = g.cdf(x) - p;
-        if f > 0.0 { hi = x } else { lo = x }
+        if f > 0.0 {
+            hi = x
+        } else {
+            lo = x
+        }
         let pdf = g.pdf(x);
         let newton = if pdf.is_finite() && pdf > 0.0 { x - f / pdf } else { f64::NAN };
         if (newton - x).abs() <= 1e-15 * x || hi - lo <= 1e-15 * hi || f == 0.0 {

@@ -84,7 +84,17 @@ pub fn fit_visibility(label: &str, points: &[AnglePoint]) -> Result<VisibilityFi
     let reduced_chi2 = if dof > 0 { chi2 / dof as f64 } else { f64::NAN };
     let (visibility, phase_deg) = derived(&params, &covariance);
     let amplitude = Estimate { value: params[0], sigma: covariance[0][0].max(0.0).sqrt() };
-    Ok(VisibilityFit { label: label.to_string(), amplitude, visibility, phase_deg, params, covariance, chi2, dof, reduced_chi2 })
+    Ok(VisibilityFit {
+        label: label.to_string(),
+        amplitude,
+        visibility,
+        phase_deg,
+        params,
+        covariance,
+        chi2,
+        dof,
+        reduced_chi2,
+    })
 }
 
 /// V = √(B²+C²)/A and θ0 = ½·atan2(C, B) with first-order σ.
@@ -110,7 +120,7 @@ fn invert3(m: &[[f64; 3]; 3]) -> Option<[[f64; 3]; 3]> {
     ];
     let det = m[0][0] * adj[0][0] + m[0][1] * adj[1][0] + m[0][2] * adj[2][0];
     let scale = m.iter().flatten().map(|x| x.abs()).fold(0.0, f64::max);
-    if !(det.abs() > 1e-12 * scale.powi(3)) {
+    if det.is_nan() || det.abs() <= 1e-12 * scale.powi(3) {
         return None;
     }
     Some(adj.map(|row| row.map(|x| x / det)))
@@ -124,10 +134,10 @@ mod tests {
     fn inverse_times_matrix_is_identity() {
         let m = [[4.0, 1.0, 0.5], [1.0, 3.0, 0.2], [0.5, 0.2, 2.0]];
         let inv = invert3(&m).unwrap();
-        for i in 0..3 {
-            for j in 0..3 {
-                let p: f64 = (0..3).map(|k| m[i][k] * inv[k][j]).sum();
-                assert!((p - if i == j { 1.0 } else { 0.0 }).abs() < 1e-14);
+        for (i, row) in m.iter().enumerate() {
+            for (j, want) in [[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]][i].iter().enumerate() {
+                let p: f64 = (0..3).map(|k| row[k] * inv[k][j]).sum();
+                assert!((p - want).abs() < 1e-14);
             }
         }
         assert!(invert3(&[[1.0, 1.0, 0.0], [1.0, 1.0, 0.0], [0.0, 0.0, 1.0]]).is_none());

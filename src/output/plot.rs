@@ -7,8 +7,9 @@ use crate::analysis::visibility::{AnglePoint, VisibilityFit};
 use crate::engine::tables::{ScanResult, SweepTable};
 use crate::output::atomic;
 use crate::{Error, Result};
+use plotters::chart::MeshStyle;
 use plotters::coord::ranged1d::{AsRangedCoord, Ranged, ValueFormatter};
-use plotters::coord::Shift;
+use plotters::coord::{CoordTranslate, Shift};
 use plotters::prelude::*;
 use plotters::style::FontStyle;
 use std::path::Path;
@@ -17,11 +18,12 @@ use std::sync::OnceLock;
 /// Image size in pixels (PNG) or user units (SVG).
 pub const SIZE: (u32, u32) = (1000, 640);
 
-// A calm palette of our own: slate blue, sage, ochre, clay, graphite, pale grid.
+// A calm palette of our own: slate blue, sage, ochre, clay, pine, graphite, pale grid.
 const SLATE: RGBColor = RGBColor(52, 93, 128);
 const SAGE: RGBColor = RGBColor(96, 148, 120);
 const OCHRE: RGBColor = RGBColor(196, 146, 58);
 const CLAY: RGBColor = RGBColor(176, 92, 86);
+const PINE: RGBColor = RGBColor(34, 96, 70);
 const GRAPHITE: RGBColor = RGBColor(64, 68, 76);
 const GRID: RGBColor = RGBColor(226, 229, 234);
 const FONT: &str = "sans-serif";
@@ -102,7 +104,11 @@ where
     area.draw(&Rectangle::new([at, (at.0 + w, at.1 + h)], WHITE.mix(0.9).filled()))?;
     area.draw(&Rectangle::new([at, (at.0 + w, at.1 + h)], GRAPHITE.stroke_width(1)))?;
     for (i, l) in lines.iter().enumerate() {
-        area.draw(&Text::new(l.clone(), (at.0 + 8, at.1 + 8 + 20 * i as i32), (FONT, 15).into_font().color(&GRAPHITE)))?;
+        area.draw(&Text::new(
+            l.clone(),
+            (at.0 + 8, at.1 + 8 + 20 * i as i32),
+            (FONT, 15).into_font().color(&GRAPHITE),
+        ))?;
     }
     Ok(())
 }
@@ -110,6 +116,46 @@ where
 /// Legend entry glyph: a short line in `c`.
 fn line_key(c: RGBColor) -> impl Fn((i32, i32)) -> PathElement<(i32, i32)> {
     move |(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], c.stroke_width(3))
+}
+
+/// Our mesh look: pale grid, no bold lines, readable fonts.
+fn calm<'m, 'a, 'b, X: Ranged<ValueType = f64>, Y: Ranged<ValueType = f64>, DB: DrawingBackend>(
+    m: &'m mut MeshStyle<'a, 'b, X, Y, DB>,
+) -> &'m mut MeshStyle<'a, 'b, X, Y, DB> {
+    m.light_line_style(GRID)
+        .bold_line_style(GRID.mix(0.0))
+        .axis_desc_style((FONT, 17))
+        .label_style((FONT, 14))
+        .x_label_formatter(&tick)
+        .y_label_formatter(&tick)
+}
+
+/// Axis tick text: integers without a decimal point, others with up to 3 decimals.
+fn tick(v: &f64) -> String {
+    if v.fract().abs() < 1e-9 && v.abs() < 1e15 {
+        format!("{}", v.round() as i64)
+    } else {
+        let s = format!("{v:.3}");
+        s.trim_end_matches('0').trim_end_matches('.').to_string()
+    }
+}
+
+/// The legend box at `pos`.
+fn draw_legend<'a, DB: DrawingBackend + 'a, CT: CoordTranslate>(
+    chart: &mut ChartContext<'a, DB, CT>,
+    pos: SeriesLabelPosition,
+) -> Drawn
+where
+    DB::ErrorType: 'static,
+{
+    chart
+        .configure_series_labels()
+        .position(pos)
+        .background_style(WHITE.mix(0.9))
+        .border_style(GRAPHITE)
+        .label_font((FONT, 15))
+        .draw()?;
+    Ok(())
 }
 
 // ---------------------------------------------------------------- delay scan
@@ -168,33 +214,32 @@ impl ScanFigure<'_> {
             .x_label_area_size(50)
             .y_label_area_size(80)
             .build_cartesian_2d(x0..x1, y_range)?;
-        chart
-            .configure_mesh()
-            .light_line_style(GRID)
-            .bold_line_style(GRID.mix(0.0))
+        calm(&mut chart.configure_mesh())
             .x_desc(format!("Δ = (t_B − d_B) − (t_A − d_A) [{uname}]"))
             .y_desc(format!("coincidences per {} ps bin", s.bin_ps))
-            .axis_desc_style((FONT, 17))
-            .label_style((FONT, 14))
             .draw()?;
-        let floor = if self.log_y { 0.5 } else { 0.0 };
-        chart
-            .draw_series(s.counts.iter().enumerate().map(|(i, c)| {
-                let top = (*c as f64).max(floor);
-                Rectangle::new([(edges[i], floor), (edges[i + 1], top)], SLATE.mix(0.75).filled())
-            }))?
-            .label("counts")
-            .legend(|(x, y)| Rectangle::new([(x, y - 6), (x + 20, y + 6)], SLATE.mix(0.75).filled()));
-        let centre_ps = s.peak.map_or(0.0, |p| p.delay_ps);
+        let floor: f64 = if self.log_y { 0.5 } else { 0.0 };
         if let Some(w) = self.window_ps {
+            let centre_ps = s.peak.map_or(0.0, |p| p.delay_ps);
             let half = (w / 2) as f64;
             let (l, r) = ((centre_ps - half) / unit, (centre_ps + half) / unit);
             let top = chart.y_range().end;
+            let what = if s.peak.is_some() { "|Δ − peak|" } else { "|Δ|" };
             chart
-                .draw_series(std::iter::once(Rectangle::new([(l, floor.max(0.5)), (r, top)], OCHRE.mix(0.22).filled())))?
-                .label(format!("window {w} ps (|Δ − peak| ≤ {} ps)", w / 2))
+                .draw_series(std::iter::once(Rectangle::new(
+                    [(l, floor.max(0.5)), (r, top)],
+                    OCHRE.mix(0.25).filled(),
+                )))?
+                .label(format!("window {w} ps ({what} ≤ {} ps)", w / 2))
                 .legend(|(x, y)| Rectangle::new([(x, y - 6), (x + 20, y + 6)], OCHRE.mix(0.4).filled()));
         }
+        chart
+            .draw_series(s.counts.iter().enumerate().map(|(i, c)| {
+                let top = (*c as f64).max(floor);
+                Rectangle::new([(edges[i], floor), (edges[i + 1], top)], SLATE.mix(0.8).filled())
+            }))?
+            .label("counts")
+            .legend(|(x, y)| Rectangle::new([(x, y - 6), (x + 20, y + 6)], SLATE.mix(0.8).filled()));
         if let Some(p) = s.peak {
             let x = p.delay_ps / unit;
             let top = chart.y_range().end;
@@ -204,10 +249,12 @@ impl ScanFigure<'_> {
                 .legend(line_key(CLAY));
             let half_y = (p.background + p.height / 2.0).max(floor);
             let (l, r) = ((p.delay_ps - p.fwhm_ps / 2.0) / unit, (p.delay_ps + p.fwhm_ps / 2.0) / unit);
+            let ticks = |x: f64| PathElement::new(vec![(x, half_y * 0.97), (x, half_y * 1.03)], PINE.stroke_width(3));
+            chart.draw_series([ticks(l), ticks(r)])?;
             chart
-                .draw_series(LineSeries::new(vec![(l, half_y), (r, half_y)], SAGE.stroke_width(3)))?
+                .draw_series(LineSeries::new(vec![(l, half_y), (r, half_y)], PINE.stroke_width(4)))?
                 .label(format!("FWHM {:.1} ps", p.fwhm_ps))
-                .legend(line_key(SAGE));
+                .legend(line_key(PINE));
         }
         draw_legend(&mut chart, SeriesLabelPosition::UpperRight)?;
         Ok(())
@@ -246,26 +293,38 @@ impl Figure for SweepFigure<'_> {
         let rec = s.recommended_window_ps as f64 / unit;
         let rec_label = format!("recommended {} ps ({})", s.recommended_window_ps, s.criterion);
 
-        let ymax = s.rows.iter().map(|r| r.coincidences as f64).fold(1.0, f64::max) * 1.1;
+        // Log scale: accidentals are usually orders of magnitude below the coincidences.
+        let ymax = s.rows.iter().map(|r| r.coincidences as f64).fold(1.0, f64::max) * 2.0;
+        let ymin = s
+            .rows
+            .iter()
+            .flat_map(|r| [r.coincidences as f64, r.acc_analytic.value])
+            .filter(|v| *v > 0.0)
+            .fold(ymax, f64::min)
+            .max(1e-3)
+            / 2.0;
         let mut c = ChartBuilder::on(&top)
             .margin(14)
             .x_label_area_size(30)
             .y_label_area_size(80)
-            .build_cartesian_2d(x_range.clone(), 0.0..ymax)?;
-        c.configure_mesh()
-            .light_line_style(GRID)
-            .bold_line_style(GRID.mix(0.0))
-            .y_desc("counts in window")
-            .axis_desc_style((FONT, 17))
-            .label_style((FONT, 14))
-            .draw()?;
+            .build_cartesian_2d(x_range.clone(), (ymin..ymax).log_scale())?;
+        calm(&mut c.configure_mesh()).y_desc("counts in window (log)").draw()?;
         let coinc: Vec<(f64, f64)> = xs.iter().zip(&s.rows).map(|(x, r)| (*x, r.coincidences as f64)).collect();
-        let acc: Vec<(f64, f64)> = xs.iter().zip(&s.rows).map(|(x, r)| (*x, r.acc_analytic.value)).collect();
-        c.draw_series(LineSeries::new(coinc.clone(), SLATE.stroke_width(2)))?.label("coincidences").legend(line_key(SLATE));
+        let acc: Vec<(f64, f64)> = xs
+            .iter()
+            .zip(&s.rows)
+            .filter(|(_, r)| r.acc_analytic.value > 0.0)
+            .map(|(x, r)| (*x, r.acc_analytic.value))
+            .collect();
+        c.draw_series(LineSeries::new(coinc.clone(), SLATE.stroke_width(2)))?
+            .label("coincidences")
+            .legend(line_key(SLATE));
         c.draw_series(coinc.iter().map(|p| Circle::new(*p, 3, SLATE.filled())))?;
-        c.draw_series(LineSeries::new(acc.clone(), OCHRE.stroke_width(2)))?.label("accidentals (analytic)").legend(line_key(OCHRE));
+        c.draw_series(LineSeries::new(acc.clone(), OCHRE.stroke_width(2)))?
+            .label("accidentals (analytic)")
+            .legend(line_key(OCHRE));
         c.draw_series(acc.iter().map(|p| Circle::new(*p, 3, OCHRE.filled())))?;
-        c.draw_series(DashedLineSeries::new(vec![(rec, 0.0), (rec, ymax)], 8, 5, CLAY.stroke_width(2)))?
+        c.draw_series(DashedLineSeries::new(vec![(rec, ymin), (rec, ymax)], 8, 5, CLAY.stroke_width(2)))?
             .label(rec_label)
             .legend(line_key(CLAY));
         draw_legend(&mut c, SeriesLabelPosition::LowerRight)?;
@@ -278,13 +337,9 @@ impl Figure for SweepFigure<'_> {
             .x_label_area_size(50)
             .y_label_area_size(80)
             .build_cartesian_2d(x_range, 0.0..cmax)?;
-        c.configure_mesh()
-            .light_line_style(GRID)
-            .bold_line_style(GRID.mix(0.0))
+        calm(&mut c.configure_mesh())
             .x_desc(format!("coincidence window w [{uname}]"))
             .y_desc("CAR (coinc./acc.)")
-            .axis_desc_style((FONT, 17))
-            .label_style((FONT, 14))
             .draw()?;
         c.draw_series(LineSeries::new(car.clone(), SAGE.stroke_width(2)))?.label("CAR").legend(line_key(SAGE));
         c.draw_series(car.iter().map(|p| Circle::new(*p, 3, SAGE.filled())))?;
@@ -328,22 +383,28 @@ impl Figure for CorrelationFigure<'_> {
             .margin(18)
             .x_label_area_size(50)
             .y_label_area_size(70)
-            .build_cartesian_2d(-0.5..3.5, -1.1..1.1)?;
-        chart
-            .configure_mesh()
-            .light_line_style(GRID)
-            .bold_line_style(GRID.mix(0.0))
+            .build_cartesian_2d(-0.5..3.5, -1.1..1.55)?; // headroom above E = 1 for the S box
+        calm(&mut chart.configure_mesh())
             .x_labels(4)
             .x_label_formatter(&|x: &f64| {
                 let i = x.round();
-                if (x - i).abs() < 1e-6 && (0.0..4.0).contains(&i) { labels[i as usize].clone() } else { String::new() }
+                if (x - i).abs() < 1e-6 && (0.0..4.0).contains(&i) {
+                    labels[i as usize].clone()
+                } else {
+                    String::new()
+                }
             })
             .x_desc("setting pair (analyzer A, analyzer B)")
             .y_desc("correlation E")
-            .axis_desc_style((FONT, 17))
-            .label_style((FONT, 14))
             .draw()?;
         chart.draw_series(LineSeries::new(vec![(-0.5, 0.0), (3.5, 0.0)], GRAPHITE.mix(0.5)))?;
+        if let Some(v) = self.model_visibility {
+            let model = r.pairs.iter().enumerate().map(|(i, p)| {
+                let e = v * (2.0 * (p.angle_a_deg - p.angle_b_deg).to_radians()).cos();
+                PathElement::new(vec![(i as f64 - 0.25, e), (i as f64 + 0.25, e)], CLAY.stroke_width(2))
+            });
+            chart.draw_series(model)?.label(format!("V·cos 2(α−β), V = {v:.3}")).legend(line_key(CLAY));
+        }
         let raw: Vec<(f64, f64, f64)> =
             r.pairs.iter().enumerate().map(|(i, p)| (i as f64 - 0.08, p.raw.e, p.raw.sigma)).collect();
         draw_points_with_bars(&mut chart, &raw, SLATE, "raw")?;
@@ -355,13 +416,6 @@ impl Figure for CorrelationFigure<'_> {
                 .filter_map(|(i, p)| p.corrected.map(|c| (i as f64 + 0.08, c.e, c.sigma)))
                 .collect();
             draw_points_with_bars(&mut chart, &cor, SAGE, "accidental-corrected")?;
-        }
-        if let Some(v) = self.model_visibility {
-            let model = r.pairs.iter().enumerate().map(|(i, p)| {
-                let e = v * (2.0 * (p.angle_a_deg - p.angle_b_deg).to_radians()).cos();
-                PathElement::new(vec![(i as f64 - 0.25, e), (i as f64 + 0.25, e)], CLAY.stroke_width(2))
-            });
-            chart.draw_series(model)?.label(format!("V·cos 2(α−β), V = {v:.3}")).legend(line_key(CLAY));
         }
         draw_legend(&mut chart, SeriesLabelPosition::LowerRight)?;
         let mut lines = vec!["S = E(a,b) − E(a,b') + E(a',b) + E(a',b')".to_string(), s_line("raw", &r.raw)];
@@ -375,23 +429,11 @@ impl Figure for CorrelationFigure<'_> {
 }
 
 /// Points (x, y, σ) with vertical error bars in colour `c`, one legend entry.
-/// The legend box every figure uses, at `position`.
-fn draw_legend<'a, DB: DrawingBackend + 'a, CT: CoordTranslate>(chart: &mut ChartContext<'a, DB, CT>, position: SeriesLabelPosition) -> Drawn
-where
-    DB::ErrorType: 'static,
-{
-    chart
-        .configure_series_labels()
-        .position(position)
-        .background_style(WHITE.mix(0.9))
-        .border_style(GRAPHITE)
-        .label_font((FONT, 15))
-        .draw()?;
-    Ok(())
-}
-
 fn draw_points_with_bars<DB: DrawingBackend>(
-    chart: &mut ChartContext<DB, Cartesian2d<plotters::coord::types::RangedCoordf64, plotters::coord::types::RangedCoordf64>>,
+    chart: &mut ChartContext<
+        DB,
+        Cartesian2d<plotters::coord::types::RangedCoordf64, plotters::coord::types::RangedCoordf64>,
+    >,
     pts: &[(f64, f64, f64)],
     c: RGBColor,
     label: &str,
@@ -436,29 +478,22 @@ impl Figure for VisibilityFigure<'_> {
         let f = self.fit;
         let lo = self.data.iter().map(|p| p.angle_deg).fold(f64::INFINITY, f64::min).min(0.0);
         let hi = self.data.iter().map(|p| p.angle_deg).fold(f64::NEG_INFINITY, f64::max).max(lo + 180.0);
-        let curve: Vec<(f64, f64)> = (0..=400).map(|i| lo + (hi - lo) * i as f64 / 400.0).map(|a| (a, f.model(a))).collect();
+        let curve: Vec<(f64, f64)> =
+            (0..=400).map(|i| lo + (hi - lo) * i as f64 / 400.0).map(|a| (a, f.model(a))).collect();
         let ymax = self
             .data
             .iter()
             .map(|p| p.counts as f64 + (p.counts as f64).sqrt())
             .chain(curve.iter().map(|p| p.1))
             .fold(1.0, f64::max)
-            * 1.15;
+            * 1.45; // headroom for the result box and legend above the data
         let mut chart = ChartBuilder::on(root)
             .caption(format!("Visibility fit: {}", f.label), (FONT, 24).into_font().color(&GRAPHITE))
             .margin(18)
             .x_label_area_size(50)
             .y_label_area_size(80)
             .build_cartesian_2d(lo..hi, 0.0..ymax)?;
-        chart
-            .configure_mesh()
-            .light_line_style(GRID)
-            .bold_line_style(GRID.mix(0.0))
-            .x_desc("analyzer angle θ [deg]")
-            .y_desc("coincidences")
-            .axis_desc_style((FONT, 17))
-            .label_style((FONT, 14))
-            .draw()?;
+        calm(&mut chart.configure_mesh()).x_desc("analyzer angle θ [deg]").y_desc("coincidences").draw()?;
         chart
             .draw_series(LineSeries::new(curve, CLAY.stroke_width(2)))?
             .label("A·(1 + V·cos 2(θ − θ0))")
