@@ -5,7 +5,7 @@
 
 use criterion::{black_box, criterion_group, criterion_main, Criterion, Throughput};
 use rayon::prelude::*;
-use tagsieve::engine::parallel;
+use tagsieve::engine::{accidentals, parallel};
 use tagsieve::simulate::rng::Rng;
 
 /// Both channels together: 256 MiB of u64 tags.
@@ -49,7 +49,7 @@ fn engine(c: &mut Criterion) {
     let (a, b) = synthetic(TOTAL_BYTES);
     let bytes = ((a.len() + b.len()) * 8) as u64;
     let pool = rayon::ThreadPoolBuilder::new().num_threads(THREADS).build().expect("rayon pool");
-    let offsets: Vec<i64> = std::iter::once(0).chain((1..=5).flat_map(|k| [-k * 1_000_000, k * 1_000_000])).map(|o| DELTA_PS + o).collect();
+    let offsets: Vec<i64> = std::iter::once(0).chain(accidentals::default_offsets_ps(1000)).map(|o| DELTA_PS + o).collect();
     let mut g = c.benchmark_group("engine_256MiB_2threads");
     g.throughput(Throughput::Bytes(bytes)).sample_size(10);
     g.bench_function("sum (memory read)", |bn| bn.iter(|| pool.install(|| sum(black_box(&a)).wrapping_add(sum(black_box(&b))))));

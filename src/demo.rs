@@ -141,7 +141,7 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
         pairs: pairs.clone(),
         delays: delays.clone(),
         window_ps: 1,
-        offsets_ps: accidentals::default_offsets_ps(),
+        offsets_ps: accidentals::default_offsets_ps(3000),
         slice_ps: DEFAULT_SLICE_PS,
     };
     let windows = sweep::window_range(50, 3000, 50)?;
@@ -166,7 +166,7 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
     }
 
     say(q, &format!("counting every block at w = {window_ps} ps and evaluating CHSH"));
-    let count_cfg = CountConfig { window_ps, ..base };
+    let count_cfg = CountConfig { window_ps, offsets_ps: accidentals::default_offsets_ps(window_ps), ..base };
     let (blocks, files) = pipeline::count_run(&m, &count_cfg, opts, PassMode::Auto, true)?;
     let car = blocks[0].coincidences.iter().map(|r| ((r.a, r.b), r.car)).collect();
     let settings = pipeline::setting_counts(&m, &blocks)?;

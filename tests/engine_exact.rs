@@ -3,7 +3,8 @@
 //! negative delays, events exactly at ±w/2 and tiny parallel chunks (chunk edges).
 
 use proptest::prelude::*;
-use tagsieve::engine::{parallel, rule};
+use tagsieve::engine::lanes::{self, Isa};
+use tagsieve::engine::{kernels, parallel, rule};
 
 /// Sorted random stream with many equal timestamps (values drawn from a small range).
 fn stream(max_len: usize, range: u64) -> impl Strategy<Value = Vec<u64>> {
@@ -23,8 +24,60 @@ fn brute_count(a: &[u64], b: &[u64], delta: i64, window: u64) -> (u64, u64) {
     (pairs, heralded)
 }
 
+/// Every instruction set of the lanes this CPU can run (the portable one always).
+fn isas() -> Vec<Isa> {
+    [Isa::Portable, Isa::Avx2, Isa::Avx512].into_iter().filter(|&i| i <= lanes::detect()).collect()
+}
+
+/// Sorted stream long enough for the interleaved lanes (≥ 8 per lane), with bursts of
+/// close and equal tags so the stride fills and the exact fallback runs.
+fn long_stream() -> impl Strategy<Value = Vec<u64>> {
+    prop::collection::vec((0u64..60, 0u64..4), 64..700).prop_map(|steps| {
+        let mut t = 1000u64;
+        steps.into_iter().map(|(gap, burst)| {
+            t += if burst == 0 { 0 } else { gap * burst };
+            t
+        }).collect()
+    })
+}
+
+/// Δ = b − a − delta of every pair with −span ≤ Δ < span, binned from −span.
+fn brute_histogram(a: &[u64], b: &[u64], delta: i64, span: u64, bin: u64) -> Vec<u64> {
+    let mut expect = vec![0u64; (2 * span).div_ceil(bin) as usize];
+    for &x in a {
+        for &y in b {
+            let d = y as i64 - x as i64 - delta;
+            if d >= -(span as i64) && d < span as i64 {
+                expect[((d + span as i64) as u64 / bin) as usize] += 1;
+            }
+        }
+    }
+    expect
+}
+
 proptest! {
     #![proptest_config(ProptestConfig { cases: 400, ..ProptestConfig::default() })]
+
+    #[test]
+    fn lane_kernels_match_brute_force_on_every_isa(
+        a in long_stream(), b in long_stream(),
+        shifts in prop::collection::vec(-300i64..300, 1..12), window in 0u64..90,
+    ) {
+        // Several shifts at once: near ones share a pointer (a group sorted by Lanes'
+        // Group::bin), far ones get their own; long streams run the interleaved lanes.
+        let half = rule::half_width_ps(window);
+        for isa in isas() {
+            let mut got = vec![kernels::WindowCount::default(); shifts.len()];
+            kernels::count_windows_on(isa, &a, &b, &shifts, half, &mut got);
+            for (&s, g) in shifts.iter().zip(&got) {
+                prop_assert_eq!((g.pairs, g.heralded), brute_count(&a, &b, s, window), "{:?}, shift {}", isa, s);
+            }
+            let (span, bin) = (window + 1, 7);
+            let mut h = vec![0u64; (2 * span).div_ceil(bin) as usize];
+            kernels::histogram_on(isa, &a, &b, shifts[0], span, bin, &mut h);
+            prop_assert_eq!(h, brute_histogram(&a, &b, shifts[0], span, bin), "{:?} histogram", isa);
+        }
+    }
 
     #[test]
     fn window_counts_match_brute_force(
@@ -54,16 +107,7 @@ proptest! {
         delta in -100i64..100, span in 1u64..80, bin in 1u64..17, chunk in 1usize..9,
     ) {
         let h = parallel::histogram_chunked(&a, &b, delta, span, bin, chunk);
-        let mut expect = vec![0u64; (2 * span).div_ceil(bin) as usize];
-        for &x in &a {
-            for &y in &b {
-                let d = y as i64 - x as i64 - delta;
-                if d >= -(span as i64) && d < span as i64 {
-                    expect[((d + span as i64) as u64 / bin) as usize] += 1;
-                }
-            }
-        }
-        prop_assert_eq!(h, expect);
+        prop_assert_eq!(h, brute_histogram(&a, &b, delta, span, bin));
     }
 
     #[test]

@@ -48,7 +48,7 @@ fn accidentals_of_independent_streams_follow_the_standard_formula() {
         pairs: vec![(1, 2)],
         delays: Delays::default(),
         window_ps: w_ps,
-        offsets_ps: accidentals::default_offsets_ps(),
+        offsets_ps: accidentals::default_offsets_ps(w_ps),
         slice_ps: 100_000_000_000,
     };
     let block = engine::count_block("indep", &tags, &cfg).unwrap();
@@ -79,7 +79,7 @@ fn analytic_accidentals_follow_drifting_rates() {
         pairs: vec![],
         delays: Delays::default(),
         window_ps: 4000,
-        offsets_ps: accidentals::default_offsets_ps(),
+        offsets_ps: accidentals::default_offsets_ps(4000),
         slice_ps: 100_000_000_000,
     };
     let sliced = engine::count_block("drift", &tags, &cfg).unwrap().coincidences[0].clone();
@@ -107,7 +107,7 @@ fn results_are_identical_for_1_2_and_16_threads() {
     let tags = vec![ChannelTags::owned(1, "a", a), ChannelTags::owned(3, "b", b)];
     let mut delays = Delays::default();
     delays.by_channel.insert(3, 41_300);
-    let cfg = CountConfig { pairs: vec![], delays: delays.clone(), window_ps: 1000, offsets_ps: accidentals::default_offsets_ps(), slice_ps: 50_000_000_000 };
+    let cfg = CountConfig { pairs: vec![], delays: delays.clone(), window_ps: 1000, offsets_ps: accidentals::default_offsets_ps(1000), slice_ps: 50_000_000_000 };
     let run = || {
         let block = engine::count_block("x", &tags, &cfg).unwrap();
         let sweep = engine::sweep_block(&tags, &cfg, &[100, 200, 500, 1000, 2000], Criterion::MaxNetSignificance).unwrap();

@@ -73,7 +73,7 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     let window_ps = args.window_ps.or(m.window_ps).ok_or_else(|| {
         Error::Usage(format!("{}: no window: give --window-ps or set window_ps in the manifest (pick one with `tagsieve sweep`)", args.manifest.display()))
     })?;
-    let cfg = CountConfig { pairs: vec![], delays, window_ps, offsets_ps: args.acc.offsets_ps(), slice_ps: args.acc.slice_ps()? };
+    let cfg = CountConfig { pairs: vec![], delays, window_ps, offsets_ps: args.acc.offsets_ps(window_ps), slice_ps: args.acc.slice_ps()? };
     let conv = match args.bell3_convention.as_str() {
         "correlated" => Convention::Correlated,
         "anti-correlated" => Convention::AntiCorrelated,

@@ -71,7 +71,8 @@ pub fn parse_pairs(specs: &[String]) -> Result<Vec<(Channel, Channel)>> {
 #[derive(clap::Args, Debug, Clone)]
 pub struct AccidentalArgs {
     /// Offsets from the peak of the off-peak windows for the measured accidentals, ps
-    /// (comma-separated); default ±1, ±2, ±3, ±4, ±5 µs.
+    /// (comma-separated); default ten windows side by side, five each side, the nearest
+    /// centred ±2 µs away (±(2 µs + k·W), k = 0…4, W = 2⌊w/2⌋+1 ps).
     #[arg(long, value_delimiter = ',', allow_hyphen_values = true, value_name = "PS")]
     pub acc_offsets_ps: Vec<i64>,
     /// Time-slice length for the analytic accidentals, s (rates may drift between slices).
@@ -80,8 +81,9 @@ pub struct AccidentalArgs {
 }
 
 impl AccidentalArgs {
-    pub fn offsets_ps(&self) -> Vec<i64> {
-        if self.acc_offsets_ps.is_empty() { accidentals::default_offsets_ps() } else { self.acc_offsets_ps.clone() }
+    /// The offsets given, or the defaults for windows up to `window_ps`.
+    pub fn offsets_ps(&self, window_ps: u64) -> Vec<i64> {
+        if self.acc_offsets_ps.is_empty() { accidentals::default_offsets_ps(window_ps) } else { self.acc_offsets_ps.clone() }
     }
     pub fn slice_ps(&self) -> Result<u64> {
         if !(self.slice_s.is_finite() && self.slice_s > 0.0) {

@@ -30,7 +30,7 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         pairs: args.pairs.pairs()?,
         delays: args.pairs.delays()?,
         window_ps: args.window_ps,
-        offsets_ps: args.acc.offsets_ps(),
+        offsets_ps: args.acc.offsets_ps(args.window_ps),
         slice_ps: args.acc.slice_ps()?,
     };
     tagsieve::engine::rule::check_window(cfg.window_ps, "--window-ps")?;

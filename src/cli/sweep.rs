@@ -66,7 +66,7 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         pairs: args.pairs.pairs()?,
         delays: args.pairs.delays()?,
         window_ps: *windows.iter().max().unwrap_or(&1),
-        offsets_ps: args.acc.offsets_ps(),
+        offsets_ps: args.acc.offsets_ps(*windows.iter().max().unwrap_or(&1)),
         slice_ps: args.acc.slice_ps()?,
     };
     let mode = args.input.mode()?;

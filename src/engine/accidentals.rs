@@ -5,11 +5,23 @@
 use super::kernels::{lower_bound, upper_bound};
 use super::tables::{BlockSpan, Estimate};
 
-/// Default off-peak offsets: ±1, ±2, ±3, ±4, ±5 µs from the peak. Clear of the peak and
-/// of detector afterpulsing and dead time, which act within ~1 µs of a detection for
-/// silicon SPADs (common practice, no source).
-pub fn default_offsets_ps() -> Vec<i64> {
-    (1..=5).flat_map(|k| [-k * 1_000_000, k * 1_000_000]).collect()
+/// Centre of the nearest default off-peak window, ps from the peak: 2 µs, clear of the
+/// peak's jitter tails, of detector dead time (tens of ns) and of most afterpulsing, which
+/// for silicon SPADs falls off within ~1 µs of a detection (common practice, no source).
+pub const DEFAULT_OFFSET_PS: i64 = 2_000_000;
+/// Default off-peak windows on each side of the peak.
+pub const DEFAULT_OFFSET_WINDOWS: i64 = 5;
+
+/// Default off-peak offsets for windows of `window_ps`: K = 10 windows, five on each side,
+/// side by side (centres one effective width W = 2⌊w/2⌋+1 apart, so they tile a stretch of
+/// flat background without overlapping), the nearest centred at ±max(2 µs, 2W). Side by
+/// side, each side's five windows share one pointer in the counting pass
+/// ([`super::kernels::count_windows`]): the measured accidentals cost about two windows'
+/// work, not ten.
+pub fn default_offsets_ps(window_ps: u64) -> Vec<i64> {
+    let width = super::rule::effective_width_ps(window_ps) as i64;
+    let first = DEFAULT_OFFSET_PS.max(2 * width);
+    (0..DEFAULT_OFFSET_WINDOWS).flat_map(|k| [-(first + k * width), first + k * width]).collect()
 }
 
 /// Σ_k n_A,k n_B,k / T_k and its Poisson variance factor, for one slicing.

@@ -2,6 +2,8 @@
 //! Every kernel handles the A events it is given and may look at any B events; the
 //! parallel driver ([`super::parallel`]) hands each task a fixed chunk of A.
 
+use super::lanes::{self, Group, STRIDE};
+
 /// Index of the first element of `b` that is ≥ `x` (x may be negative).
 #[inline]
 pub fn lower_bound(b: &[u64], x: i64) -> usize {
@@ -41,136 +43,68 @@ pub fn count_window(a: &[u64], b: &[u64], shift_ps: i64, half_ps: u64) -> Window
     out[0]
 }
 
-/// B elements the branch-free pointer step compares at once (see [`Pointers::step`]).
-const STRIDE: usize = 4;
-/// A events per block when counting several windows (8 KiB: stays in L1 across windows).
-const BLOCK_EVENTS: usize = 1024;
-/// Windows whose pointers one loop carries together (more would not stay in registers).
-const GROUP: usize = 2;
+/// Windows closer than this many window widths (2⌊w/2⌋+1) to their neighbour share one
+/// pointer: its step covers all of them, and the rare partners are sorted into windows.
+const CLUSTER_GAP_WIDTHS: i64 = 2;
+/// Most windows one shared pointer serves (their heralded flags fit one u64).
+const CLUSTER_MAX: usize = 64;
 
 /// Add to `out[k]` the pairs and heralded A events with |b − a − shifts[k]| ≤ half, for
-/// every shift at once in one pass over `a` (the peak and the off-peak windows together).
+/// every shift at once (the peak and the off-peak windows together).
 ///
-/// Each window keeps two monotone pointers into B: `lo`, the first b ≥ a+shift−half, and
-/// `hi`, at most the first b > a+shift+half. Both only move forward, so the pass is
-/// O(|A| + |B|) per window, and the pair count comes without visiting pairs one by one in
-/// wide windows. The windows sit side by side in the inner loop: their pointer chains are
-/// independent, so the CPU overlaps them, and A and B are read from memory once however
-/// many windows there are.
+/// Shifts are sorted and grouped: a group is a run of windows each within
+/// [`CLUSTER_GAP_WIDTHS`] widths of the next (the default off-peak windows lie side by
+/// side), served by one pointer into B, so ten off-peak windows cost what one does. Each
+/// group keeps a monotone pointer, the first b ≥ a + (its leftmost edge), so the pass is
+/// O(|A| + |B|) per group; the steps run on interleaved lanes ([`super::lanes`]).
 pub fn count_windows(a: &[u64], b: &[u64], shifts_ps: &[i64], half_ps: u64, out: &mut [WindowCount]) {
+    count_windows_on(lanes::isa(), a, b, shifts_ps, half_ps, out)
+}
+
+/// [`count_windows`] with the lanes' instruction set chosen (tests compare them).
+pub fn count_windows_on(isa: lanes::Isa, a: &[u64], b: &[u64], shifts_ps: &[i64], half_ps: u64, out: &mut [WindowCount]) {
     assert_eq!(shifts_ps.len(), out.len(), "one result slot per shift");
-    let Some(&first) = a.first() else { return };
+    if a.is_empty() || shifts_ps.is_empty() {
+        return;
+    }
     let h = half_ps as i64;
-    let mut ptrs: Vec<Pointers> = shifts_ps
-        .iter()
-        .map(|&s| {
-            let lo = lower_bound(b, first as i64 + s - h);
-            Pointers { lo, hi: lo }
+    let mut groups: Vec<Group> = groups(shifts_ps, h)
+        .into_iter()
+        .map(|ks| {
+            let shifts: Vec<i64> = ks.iter().map(|&k| shifts_ps[k]).collect();
+            Group { left: shifts[0] - h, right: shifts[shifts.len() - 1] + h, h, sums: vec![WindowCount::default(); ks.len()], slots: ks, shifts }
         })
         .collect();
-    let n_fast = fast_prefix(a, b, shifts_ps.iter().max().copied().unwrap_or(0) + h);
-    // Small blocks of A, and within a block the windows in groups of up to GROUP: one
-    // loop carries a group's pointers side by side, so their independent load chains
-    // overlap in the CPU, while the block (and its stretch of B) comes from memory once
-    // and from cache for the other groups.
-    for block in a[..n_fast].chunks(BLOCK_EVENTS) {
-        let mut k = 0;
-        while k < shifts_ps.len() {
-            let g = (shifts_ps.len() - k).min(GROUP);
-            let (sh, pt, sl) = (&shifts_ps[k..k + g], &mut ptrs[k..k + g], &mut out[k..k + g]);
-            match g {
-                2 => run_two(block, b, sh, h, pt, sl),
-                _ => run_group::<1>(block, b, sh, h, pt, sl),
-            }
-            k += g;
+    let reach = groups.iter().map(|g| g.right).max().unwrap_or(0);
+    let n_fast = fast_prefix(a, b, reach);
+    lanes::count_groups_on(isa, &a[..n_fast], b, &mut groups);
+    for g in &groups {
+        for (&k, &c) in g.slots.iter().zip(&g.sums) {
+            out[k] = out[k] + c;
         }
     }
     // The last few A events, whose pointers may run into B's end: plain bounds-checked loop.
-    for ((&s, p), slot) in shifts_ps.iter().zip(ptrs.iter()).zip(out.iter_mut()) {
-        let c = count_scalar(&a[n_fast..], b, s, h, p.lo);
-        slot.pairs += c.pairs;
-        slot.heralded += c.heralded;
+    if n_fast < a.len() {
+        let tail = &a[n_fast..];
+        for (&s, slot) in shifts_ps.iter().zip(out.iter_mut()) {
+            *slot = *slot + count_scalar(tail, b, s, h, lower_bound(b, tail[0] as i64 + s - h));
+        }
     }
 }
 
-/// Count a block of A events (all within the stride-safe prefix) for N windows at once,
-/// their pointers and sums in locals (registers) for the length of the block.
-fn run_group<const N: usize>(a: &[u64], b: &[u64], shifts_ps: &[i64], h: i64, ptrs: &mut [Pointers], out: &mut [WindowCount]) {
-    let left: [i64; N] = std::array::from_fn(|k| shifts_ps[k] - h);
-    let right: [i64; N] = std::array::from_fn(|k| shifts_ps[k] + h);
-    let mut q: [Pointers; N] = std::array::from_fn(|k| ptrs[k]);
-    let mut sums = [WindowCount::default(); N];
-    for &x in a {
-        for k in 0..N {
-            let n = q[k].step(b, x as i64 + left[k], x as i64 + right[k]);
-            sums[k].pairs += n;
-            sums[k].heralded += (n > 0) as u64;
+/// Indices of `shifts` grouped as [`count_windows`] describes, each group in ascending order.
+fn groups(shifts: &[i64], h: i64) -> Vec<Vec<usize>> {
+    let mut order: Vec<usize> = (0..shifts.len()).collect();
+    order.sort_by_key(|&k| shifts[k]);
+    let gap = CLUSTER_GAP_WIDTHS.saturating_mul(2 * h + 1);
+    let mut out: Vec<Vec<usize>> = Vec::new();
+    for k in order {
+        match out.last_mut() {
+            Some(g) if g.len() < CLUSTER_MAX && shifts[k] - shifts[g[g.len() - 1]] <= gap => g.push(k),
+            _ => out.push(vec![k]),
         }
     }
-    for k in 0..N {
-        ptrs[k] = q[k];
-        out[k] = out[k] + sums[k];
-    }
-}
-
-/// [`run_group`] for two windows, written out so both pointer pairs stay in registers.
-fn run_two(a: &[u64], b: &[u64], shifts_ps: &[i64], h: i64, ptrs: &mut [Pointers], out: &mut [WindowCount]) {
-    let (l0, r0, l1, r1) = (shifts_ps[0] - h, shifts_ps[0] + h, shifts_ps[1] - h, shifts_ps[1] + h);
-    let (mut p0, mut p1) = (ptrs[0], ptrs[1]);
-    let (mut s0, mut s1) = (WindowCount::default(), WindowCount::default());
-    for &x in a {
-        let x = x as i64;
-        let n0 = p0.step(b, x + l0, x + r0);
-        let n1 = p1.step(b, x + l1, x + r1);
-        s0.pairs += n0;
-        s0.heralded += (n0 > 0) as u64;
-        s1.pairs += n1;
-        s1.heralded += (n1 > 0) as u64;
-    }
-    (ptrs[0], ptrs[1]) = (p0, p1);
-    out[0] = out[0] + s0;
-    out[1] = out[1] + s1;
-}
-
-/// One window's place in B: `lo` = first b ≥ left of the last A event; `hi` ≤ the first
-/// b > right (kept exact only when the slow path needs it).
-#[derive(Clone, Copy)]
-struct Pointers {
-    lo: usize,
-    hi: usize,
-}
-
-impl Pointers {
-    /// Move to the window [left, right] of the next A event; return its partner count.
-    ///
-    /// The hot step. Between two A events `lo` moves by about |B|/|A| ≈ 1 element, but by
-    /// 0, 1 or 2 at random, so a `while` loop would mispredict on most events. Instead the
-    /// next STRIDE elements are loaded once (the loads do not depend on each other) and
-    /// two branch-free counts taken: `below` (< left) is how far `lo` moves, `upto` (≤ right)
-    /// − `below` the partners, as B is sorted. Only when either count fills the stride,
-    /// rare for a window narrow against the tag spacing, does the exact loop run, with a
-    /// `hi` that never moves back, so the pass stays O(|A| + |B|) for wide windows too.
-    /// The caller guarantees lo + STRIDE ≤ |B| (see [`fast_prefix`]).
-    #[inline(always)]
-    fn step(&mut self, b: &[u64], left: i64, right: i64) -> u64 {
-        let ahead = &b[self.lo..self.lo + STRIDE];
-        let below: usize = ahead.iter().map(|&v| ((v as i64) < left) as usize).sum();
-        let upto: usize = ahead.iter().map(|&v| ((v as i64) <= right) as usize).sum();
-        if below < STRIDE && upto < STRIDE {
-            self.lo += below;
-            return (upto - below) as u64;
-        }
-        let mut lo = self.lo + below;
-        while lo < b.len() && (b[lo] as i64) < left {
-            lo += 1;
-        }
-        let mut hi = self.hi.max(lo);
-        while hi < b.len() && (b[hi] as i64) <= right {
-            hi += 1;
-        }
-        (self.lo, self.hi) = (lo, hi);
-        (hi - lo) as u64
-    }
+    out
 }
 
 /// How many leading A events the stride step may serve: those whose pointers, bounds of
@@ -208,30 +142,16 @@ fn count_scalar(a: &[u64], b: &[u64], shift_ps: i64, h: i64, start: usize) -> Wi
 /// Add to `hist` the Δ = b − a − shift of every pair with −span ≤ Δ < span, in bins of
 /// `bin_ps` starting at −span (bin i covers [−span + i·bin, −span + (i+1)·bin)).
 pub fn histogram(a: &[u64], b: &[u64], shift_ps: i64, span_ps: u64, bin_ps: u64, hist: &mut [u64]) {
-    let Some(&first) = a.first() else { return };
+    histogram_on(lanes::isa(), a, b, shift_ps, span_ps, bin_ps, hist)
+}
+
+/// [`histogram`] with the lanes' instruction set chosen (tests compare them).
+pub fn histogram_on(isa: lanes::Isa, a: &[u64], b: &[u64], shift_ps: i64, span_ps: u64, bin_ps: u64, hist: &mut [u64]) {
     let span = span_ps as i64;
-    let mut lo = lower_bound(b, first as i64 + shift_ps - span);
     let n_fast = fast_prefix(a, b, shift_ps + span);
-    for &x in &a[..n_fast] {
-        // Same stride step as the count (see [`Pointers::step`]): `lo` moves by `below`,
-        // and the pairs in the stride are b[lo + below .. lo + upto]; a full stride of
-        // either kind falls back to the plain loops.
-        let base = x as i64 + shift_ps; // Δ = b − base
-        let ahead = &b[lo..lo + STRIDE];
-        let below: usize = ahead.iter().map(|&v| ((v as i64) < base - span) as usize).sum();
-        let upto: usize = ahead.iter().map(|&v| ((v as i64) < base + span) as usize).sum();
-        if below == STRIDE {
-            lo += below;
-            while lo < b.len() && (b[lo] as i64) < base - span {
-                lo += 1;
-            }
-            add_pairs(&b[lo..], base, span, bin_ps, hist);
-            continue;
-        }
-        lo += below;
-        let in_stride = if upto == STRIDE { b.len() - lo } else { upto - below };
-        add_pairs(&b[lo..lo + in_stride], base, span, bin_ps, hist);
-    }
+    lanes::histogram_on(isa, &a[..n_fast], b, shift_ps, span, bin_ps, hist);
+    let Some(&first) = a.get(n_fast) else { return };
+    let mut lo = lower_bound(b, first as i64 + shift_ps - span);
     for &x in &a[n_fast..] {
         let base = x as i64 + shift_ps;
         while lo < b.len() && (b[lo] as i64) < base - span {

@@ -6,6 +6,7 @@ pub mod accidentals;
 pub mod count;
 pub mod delays;
 pub mod kernels;
+pub mod lanes;
 pub mod parallel;
 pub mod rule;
 pub mod scan;

@@ -1,0 +1,450 @@
+//! Interleaved lanes: the hot loops of the window counts and the delay histogram.
+//!
+//! Every kernel walks A in time order while a pointer into B follows it (the first b at
+//! or after the window's left edge). Each step's B load depends on where the previous
+//! step left the pointer, so one walk is a chain of dependent loads and runs at the
+//! latency of that chain, not at the machine's throughput. Here A is cut into [`LANES`]
+//! contiguous lanes, each with its own pointer (found by binary search at the lane's first
+//! event), and the loop takes one event of every lane in turn: the chains are independent,
+//! so the CPU overlaps them. Counts are integer sums over disjoint sets of A events, so they
+//! do not depend on how A is cut.
+//!
+//! One step compares the next [`STRIDE`] B elements with the event's window edges at once
+//! ([`Compare`]): `below` (< left) is how far the pointer moves, `upto` (≤ right) − `below`
+//! the partners, as B is sorted. The loops are compiled twice, for the baseline target and
+//! with AVX2 and with AVX-512 (the compare becomes vector compares); [`isa`] picks at run time.
+
+use super::kernels::{lower_bound, WindowCount};
+
+/// Independent pointer chains one loop carries.
+pub const LANES: usize = 8;
+/// B elements one step compares at once. Between two A events the pointer moves by about
+/// |B|/|A| ≈ 1 element, but by 4 or more often enough (a few % of events at equal rates)
+/// that a stride of 4 would leave the fast path too often; 8 almost never.
+pub const STRIDE: usize = 8;
+
+/// The stride compare: of `w[..STRIDE]` (ascending), how many are < `left` and ≤ `right`.
+pub trait Compare {
+    fn below_upto(w: &[u64], left: i64, right: i64) -> (usize, usize);
+}
+
+/// Plain integer compares (any CPU).
+pub struct Portable;
+
+impl Compare for Portable {
+    #[inline(always)]
+    fn below_upto(w: &[u64], left: i64, right: i64) -> (usize, usize) {
+        let w = &w[..STRIDE];
+        let mut below = 0usize;
+        let mut upto = 0usize;
+        for &v in w {
+            below += ((v as i64) < left) as usize;
+            upto += ((v as i64) <= right) as usize;
+        }
+        (below, upto)
+    }
+}
+
+/// AVX2: four 4-wide compares of signed 64-bit values (tags are < 2^62 ps, so signed
+/// is exact).
+#[cfg(target_arch = "x86_64")]
+pub struct Avx2;
+
+#[cfg(target_arch = "x86_64")]
+impl Compare for Avx2 {
+    #[inline(always)]
+    fn below_upto(w: &[u64], left: i64, right: i64) -> (usize, usize) {
+        use std::arch::x86_64::*;
+        let w = &w[..STRIDE];
+        // SAFETY: `w` holds eight u64 (64 bytes, unaligned loads); this is only reached
+        // from functions compiled with AVX2 and called after the CPU was checked for it.
+        unsafe {
+            let v0 = _mm256_loadu_si256(w.as_ptr() as *const __m256i);
+            let v1 = _mm256_loadu_si256(w.as_ptr().add(4) as *const __m256i);
+            let (l, r) = (_mm256_set1_epi64x(left), _mm256_set1_epi64x(right + 1));
+            let mask = |c0: __m256i, c1: __m256i| {
+                let lo = _mm256_movemask_pd(_mm256_castsi256_pd(c0)) as u64;
+                let hi = _mm256_movemask_pd(_mm256_castsi256_pd(c1)) as u64;
+                (lo | hi << 4).count_ones() as usize
+            };
+            let below = mask(_mm256_cmpgt_epi64(l, v0), _mm256_cmpgt_epi64(l, v1));
+            let upto = mask(_mm256_cmpgt_epi64(r, v0), _mm256_cmpgt_epi64(r, v1));
+            (below, upto)
+        }
+    }
+}
+
+/// AVX-512: two 8-wide compares into mask registers.
+#[cfg(target_arch = "x86_64")]
+pub struct Avx512;
+
+#[cfg(target_arch = "x86_64")]
+impl Compare for Avx512 {
+    #[inline(always)]
+    fn below_upto(w: &[u64], left: i64, right: i64) -> (usize, usize) {
+        use std::arch::x86_64::*;
+        let w = &w[..STRIDE];
+        // SAFETY: `w` holds eight u64 (64 bytes, unaligned load); this is only reached from
+        // functions compiled with AVX-512F and called after the CPU was checked for it.
+        unsafe {
+            let v = _mm512_loadu_si512(w.as_ptr() as *const __m512i);
+            let below = _mm512_cmplt_epi64_mask(v, _mm512_set1_epi64(left));
+            let upto = _mm512_cmple_epi64_mask(v, _mm512_set1_epi64(right));
+            (below.count_ones() as usize, upto.count_ones() as usize)
+        }
+    }
+}
+
+/// The instruction set the loops run with on this CPU.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
+pub enum Isa {
+    Portable,
+    Avx2,
+    Avx512,
+}
+
+/// The best [`Isa`] this CPU has (detected once; `TAGSIEVE_ISA=portable|avx2` lowers it,
+/// so tests can run every variant on one machine).
+pub fn isa() -> Isa {
+    static ISA: std::sync::OnceLock<Isa> = std::sync::OnceLock::new();
+    *ISA.get_or_init(|| {
+        let best = detect();
+        match std::env::var("TAGSIEVE_ISA").as_deref() {
+            Ok("portable") => Isa::Portable,
+            Ok("avx2") if best == Isa::Avx512 => Isa::Avx2,
+            _ => best,
+        }
+    })
+}
+
+/// The best [`Isa`] the CPU has, ignoring `TAGSIEVE_ISA`.
+pub fn detect() -> Isa {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::arch::is_x86_feature_detected!("avx512f") && std::arch::is_x86_feature_detected!("popcnt") {
+            return Isa::Avx512;
+        }
+        if std::arch::is_x86_feature_detected!("avx2") && std::arch::is_x86_feature_detected!("popcnt") {
+            return Isa::Avx2;
+        }
+    }
+    Isa::Portable
+}
+
+/// A's lanes: `LANES` equal contiguous slices of `a`, and what is left after them.
+///
+/// The lane length is trimmed (by whole 64-byte lines) so that the lanes' starts fall in
+/// different sets of a 4 KiB-way L1 cache: with A in power-of-two chunks, equal lanes of
+/// 2^13 events would start 64 KiB apart, all in one set, and the eight streams would evict
+/// each other (measured: half the speed of trimmed lanes).
+pub fn split(a: &[u64]) -> Option<([&[u64]; LANES], &[u64])> {
+    let mut n = a.len() / LANES;
+    // Lines per lane modulo the 64 sets; lane l starts in set l·j, distinct for all
+    // lanes when gcd(j, 64) ≤ 64 / LANES.
+    let sets_apart = |n: usize| gcd((n / 8) % 64, 64) <= 64 / LANES;
+    while n > 16 && !sets_apart(n) {
+        n -= 8;
+    }
+    if n == 0 {
+        return None;
+    }
+    Some((std::array::from_fn(|l| &a[l * n..(l + 1) * n]), &a[LANES * n..]))
+}
+
+fn gcd(mut x: usize, mut y: usize) -> usize {
+    while y != 0 {
+        (x, y) = (y, x % y);
+    }
+    x
+}
+
+/// A group of windows served by one pointer: [left, right] is the b − a it covers. A lone
+/// window (`shifts.len() == 1`) counts its partners directly; a group of several sorts
+/// its rare partners into windows ([`Group::bin`]).
+pub struct Group {
+    pub left: i64,
+    pub right: i64,
+    pub h: i64,
+    /// The group's shifts (ascending) and where each one's result goes.
+    pub shifts: Vec<i64>,
+    pub slots: Vec<usize>,
+    pub sums: Vec<WindowCount>,
+}
+
+impl Group {
+    /// Sort the partners b[from..to] of event x into the group's windows.
+    #[cold]
+    #[inline(never)]
+    pub fn bin(&mut self, b: &[u64], from: usize, to: usize, x: i64) {
+        let mut hit = 0u64;
+        for &v in &b[from..to] {
+            let d = v as i64 - x;
+            for (j, &s) in self.shifts.iter().enumerate() {
+                if (d - s).abs() <= self.h {
+                    self.sums[j].pairs += 1;
+                    hit |= 1 << j;
+                }
+            }
+        }
+        while hit != 0 {
+            self.sums[hit.trailing_zeros() as usize].heralded += 1;
+            hit &= hit - 1;
+        }
+    }
+}
+
+/// The exact step when the stride is full (rare for windows narrow against the tag
+/// spacing): plain loops from `lo`, with a `hi` that never moves back, so a wide lone
+/// window still costs O(|A| + |B|). Returns the new (lo, hi): the partners are b[lo..hi].
+#[cold]
+#[inline(never)]
+fn wide_step(b: &[u64], mut lo: usize, hi: usize, left: i64, right: i64) -> (usize, usize) {
+    while lo < b.len() && (b[lo] as i64) < left {
+        lo += 1;
+    }
+    let mut hi = hi.max(lo);
+    while hi < b.len() && (b[hi] as i64) <= right {
+        hi += 1;
+    }
+    (lo, hi)
+}
+
+/// Window counts of every group over `a`, every event of which must be stride-safe for
+/// every group (lo + STRIDE ≤ |B|; see `kernels::fast_prefix`).
+pub fn count_groups(a: &[u64], b: &[u64], groups: &mut [Group]) {
+    count_groups_on(isa(), a, b, groups)
+}
+
+/// [`count_groups`] with a chosen instruction set (tests compare them); one the CPU lacks
+/// falls back to the best it has.
+pub fn count_groups_on(isa: Isa, a: &[u64], b: &[u64], groups: &mut [Group]) {
+    match isa.min(detect()) {
+        // SAFETY (both): `isa()` found the features the function is compiled for.
+        #[cfg(target_arch = "x86_64")]
+        Isa::Avx512 => unsafe { count_groups_avx512(a, b, groups) },
+        #[cfg(target_arch = "x86_64")]
+        Isa::Avx2 => unsafe { count_groups_avx2(a, b, groups) },
+        _ => count_groups_with::<Portable>(a, b, groups),
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,popcnt")]
+unsafe fn count_groups_avx2(a: &[u64], b: &[u64], groups: &mut [Group]) {
+    count_groups_with::<Avx2>(a, b, groups)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f,avx2,popcnt")]
+unsafe fn count_groups_avx512(a: &[u64], b: &[u64], groups: &mut [Group]) {
+    count_groups_with::<Avx512>(a, b, groups)
+}
+
+/// Events per lane copied into the interleaved buffer at a time.
+const ROUND: usize = 128;
+
+#[inline(always)]
+fn count_groups_with<C: Compare>(a: &[u64], b: &[u64], groups: &mut [Group]) {
+    let rest = match split(a) {
+        Some((lanes, rest)) => {
+            count_rounds::<C>(&lanes, b, groups);
+            rest
+        }
+        None => a,
+    };
+    if !rest.is_empty() {
+        for g in groups.chunks_mut(1) {
+            count_lanes::<C, 1, 1>(g, &[rest], b);
+        }
+    }
+}
+
+/// The lanes round by round: each round's events are copied interleaved (event i of lane
+/// l at i·LANES + l), so one pointer walks all lanes, and every group runs over the round
+/// with its eight lane pointers in registers ([`group_round`]).
+#[inline(always)]
+fn count_rounds<C: Compare>(lanes: &[&[u64]; LANES], b: &[u64], groups: &mut [Group]) {
+    let n = lanes[0].len();
+    let mut lo: Vec<[usize; LANES]> = groups.iter().map(|g| std::array::from_fn(|l| lower_bound(b, lanes[l][0] as i64 + g.left))).collect();
+    let mut hi = lo.clone();
+    let mut buf = [0u64; ROUND * LANES];
+    let mut r = 0;
+    while r < n {
+        let m = ROUND.min(n - r);
+        for (i, row) in buf.chunks_exact_mut(LANES).take(m).enumerate() {
+            for (slot, lane) in row.iter_mut().zip(lanes) {
+                *slot = lane[r + i];
+            }
+        }
+        let xs = &buf[..m * LANES];
+        for ((g, lo), hi) in groups.iter_mut().zip(lo.iter_mut()).zip(hi.iter_mut()) {
+            if g.shifts.len() == 1 {
+                group_round::<C, false>(g, xs, b, lo, hi);
+            } else {
+                group_round::<C, true>(g, xs, b, lo, hi);
+            }
+        }
+        r += m;
+    }
+}
+
+/// One group over interleaved events `xs` (rows of LANES), the lane pointers in locals.
+/// MULTI: the group has several windows (partners go to [`Group::bin`]).
+#[inline(always)]
+fn group_round<C: Compare, const MULTI: bool>(g: &mut Group, xs: &[u64], b: &[u64], lo: &mut [usize; LANES], hi: &mut [usize; LANES]) {
+    let (left, right) = (g.left, g.right);
+    let [mut p0, mut p1, mut p2, mut p3, mut p4, mut p5, mut p6, mut p7] = *lo;
+    let (mut pairs, mut heralded) = (0u64, 0u64);
+    for row in xs.chunks_exact(LANES) {
+        macro_rules! lane {
+            ($p:ident, $l:expr) => {{
+                let x = row[$l] as i64;
+                let (below, upto) = C::below_upto(&b[$p..], x + left, x + right);
+                let (from, to) = if upto < STRIDE {
+                    $p += below;
+                    ($p, $p + (upto - below))
+                } else {
+                    let (l2, h2) = wide_step(b, $p, hi[$l], x + left, x + right);
+                    ($p, hi[$l]) = (l2, h2);
+                    (l2, h2)
+                };
+                if MULTI {
+                    if to > from {
+                        g.bin(b, from, to, x);
+                    }
+                } else {
+                    pairs += (to - from) as u64;
+                    heralded += (to > from) as u64;
+                }
+            }};
+        }
+        lane!(p0, 0);
+        lane!(p1, 1);
+        lane!(p2, 2);
+        lane!(p3, 3);
+        lane!(p4, 4);
+        lane!(p5, 5);
+        lane!(p6, 6);
+        lane!(p7, 7);
+    }
+    *lo = [p0, p1, p2, p3, p4, p5, p6, p7];
+    if !MULTI {
+        g.sums[0] = g.sums[0] + WindowCount { pairs, heralded };
+    }
+}
+
+/// Every event of L equal lanes for G groups at once (used for the few events after the
+/// lanes, L = G = 1).
+#[inline(always)]
+fn count_lanes<C: Compare, const G: usize, const L: usize>(gs: &mut [Group], lanes: &[&[u64]; L], b: &[u64]) {
+    let left: [i64; G] = std::array::from_fn(|g| gs[g].left);
+    let right: [i64; G] = std::array::from_fn(|g| gs[g].right);
+    let multi: [bool; G] = std::array::from_fn(|g| gs[g].shifts.len() > 1);
+    let mut lo: [[usize; L]; G] = std::array::from_fn(|g| std::array::from_fn(|l| lower_bound(b, lanes[l][0] as i64 + left[g])));
+    let mut hi = lo;
+    let (mut pairs, mut heralded) = ([0u64; G], [0u64; G]);
+    let n = lanes[0].len();
+    for i in 0..n {
+        for l in 0..L {
+            // SAFETY: i < n, and every lane has length n (see `split`).
+            let x = unsafe { *lanes[l].get_unchecked(i) } as i64;
+            for g in 0..G {
+                let p = &mut lo[g][l];
+                let (below, upto) = C::below_upto(&b[*p..], x + left[g], x + right[g]);
+                let (from, to) = if upto < STRIDE {
+                    *p += below;
+                    (*p, *p + (upto - below))
+                } else {
+                    (*p, hi[g][l]) = wide_step(b, *p, hi[g][l], x + left[g], x + right[g]);
+                    (*p, hi[g][l])
+                };
+                if multi[g] {
+                    if to > from {
+                        gs[g].bin(b, from, to, x);
+                    }
+                } else {
+                    pairs[g] += (to - from) as u64;
+                    heralded[g] += (to > from) as u64;
+                }
+            }
+        }
+    }
+    for g in 0..G {
+        if !multi[g] {
+            gs[g].sums[0] = gs[g].sums[0] + WindowCount { pairs: pairs[g], heralded: heralded[g] };
+        }
+    }
+}
+
+/// Delay histogram over [−span, span) (Δ = b − a − shift), bins of `bin_ps`, over `a`
+/// (stride-safe for reach shift + span, as for [`count_groups`]).
+pub fn histogram(a: &[u64], b: &[u64], shift_ps: i64, span_ps: i64, bin_ps: u64, hist: &mut [u64]) {
+    histogram_on(isa(), a, b, shift_ps, span_ps, bin_ps, hist)
+}
+
+/// [`histogram`] with a chosen instruction set (as [`count_groups_on`]).
+pub fn histogram_on(isa: Isa, a: &[u64], b: &[u64], shift_ps: i64, span_ps: i64, bin_ps: u64, hist: &mut [u64]) {
+    match isa.min(detect()) {
+        // SAFETY (both): `isa()` found the features the function is compiled for.
+        #[cfg(target_arch = "x86_64")]
+        Isa::Avx512 => unsafe { histogram_avx512(a, b, shift_ps, span_ps, bin_ps, hist) },
+        #[cfg(target_arch = "x86_64")]
+        Isa::Avx2 => unsafe { histogram_avx2(a, b, shift_ps, span_ps, bin_ps, hist) },
+        _ => histogram_with::<Portable>(a, b, shift_ps, span_ps, bin_ps, hist),
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,popcnt")]
+unsafe fn histogram_avx2(a: &[u64], b: &[u64], shift_ps: i64, span_ps: i64, bin_ps: u64, hist: &mut [u64]) {
+    histogram_with::<Avx2>(a, b, shift_ps, span_ps, bin_ps, hist)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f,avx2,popcnt")]
+unsafe fn histogram_avx512(a: &[u64], b: &[u64], shift_ps: i64, span_ps: i64, bin_ps: u64, hist: &mut [u64]) {
+    histogram_with::<Avx512>(a, b, shift_ps, span_ps, bin_ps, hist)
+}
+
+#[inline(always)]
+fn histogram_with<C: Compare>(a: &[u64], b: &[u64], shift: i64, span: i64, bin_ps: u64, hist: &mut [u64]) {
+    let edges = (shift - span, shift + span - 1);
+    let rest = match split(a) {
+        Some((lanes, rest)) => {
+            histogram_lanes::<C, LANES>(&lanes, b, edges, bin_ps, hist);
+            rest
+        }
+        None => a,
+    };
+    if !rest.is_empty() {
+        histogram_lanes::<C, 1>(&[rest], b, edges, bin_ps, hist);
+    }
+}
+
+/// Every event of L equal lanes into the histogram; (left, right) = (shift − span,
+/// shift + span − 1), the Δ + shift range binned.
+#[inline(always)]
+fn histogram_lanes<C: Compare, const L: usize>(lanes: &[&[u64]; L], b: &[u64], (left, right): (i64, i64), bin_ps: u64, hist: &mut [u64]) {
+    let mut p: [usize; L] = std::array::from_fn(|l| lower_bound(b, lanes[l][0] as i64 + left));
+    let mut hi = p;
+    for i in 0..lanes[0].len() {
+        for l in 0..L {
+            // SAFETY: i < the length of lane 0, which every lane has (see `split`).
+            let x = unsafe { *lanes[l].get_unchecked(i) } as i64;
+            let (below, upto) = C::below_upto(&b[p[l]..], x + left, x + right);
+            let (from, to) = if upto < STRIDE {
+                p[l] += below;
+                (p[l], p[l] + (upto - below))
+            } else {
+                (p[l], hi[l]) = wide_step(b, p[l], hi[l], x + left, x + right);
+                (p[l], hi[l])
+            };
+            for &v in &b[from..to] {
+                let bin = ((v as i64 - x - left) as u64 / bin_ps) as usize;
+                if bin < hist.len() {
+                    hist[bin] += 1;
+                }
+            }
+        }
+    }
+}
