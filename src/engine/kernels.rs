@@ -72,7 +72,7 @@ pub fn count_windows_on(isa: lanes::Isa, a: &[u64], b: &[u64], shifts_ps: &[i64]
         .into_iter()
         .map(|ks| {
             let shifts: Vec<i64> = ks.iter().map(|&k| shifts_ps[k]).collect();
-            Group { left: shifts[0] - h, right: shifts[shifts.len() - 1] + h, h, sums: vec![WindowCount::default(); ks.len()], slots: ks, shifts }
+            Group::windows(shifts, ks, h)
         })
         .collect();
     let reach = groups.iter().map(|g| g.right).max().unwrap_or(0);
@@ -149,7 +149,11 @@ pub fn histogram(a: &[u64], b: &[u64], shift_ps: i64, span_ps: u64, bin_ps: u64,
 pub fn histogram_on(isa: lanes::Isa, a: &[u64], b: &[u64], shift_ps: i64, span_ps: u64, bin_ps: u64, hist: &mut [u64]) {
     let span = span_ps as i64;
     let n_fast = fast_prefix(a, b, shift_ps + span);
-    lanes::histogram_on(isa, &a[..n_fast], b, shift_ps, span, bin_ps, hist);
+    let mut g = [Group::histogram(shift_ps, span, bin_ps, hist.len())];
+    lanes::count_groups_on(isa, &a[..n_fast], b, &mut g);
+    for (h, c) in hist.iter_mut().zip(&g[0].hist.as_ref().expect("a histogram group").counts) {
+        *h += c;
+    }
     let Some(&first) = a.get(n_fast) else { return };
     let mut lo = lower_bound(b, first as i64 + shift_ps - span);
     for &x in &a[n_fast..] {

@@ -169,13 +169,55 @@ pub struct Group {
     pub shifts: Vec<i64>,
     pub slots: Vec<usize>,
     pub sums: Vec<WindowCount>,
+    /// Instead of windows, a delay histogram over [left, right]: partner b of event x
+    /// goes to bin (b − x − left) / bin_ps.
+    pub hist: Option<Bins>,
+}
+
+/// Histogram bins of a [`Group`].
+pub struct Bins {
+    pub bin_ps: u64,
+    pub counts: Vec<u64>,
 }
 
 impl Group {
-    /// Sort the partners b[from..to] of event x into the group's windows.
+    /// A lone window or a group of windows at `shifts` (ascending), half-width `h`.
+    pub fn windows(shifts: Vec<i64>, slots: Vec<usize>, h: i64) -> Self {
+        Group { left: shifts[0] - h, right: shifts[shifts.len() - 1] + h, h, sums: vec![WindowCount::default(); shifts.len()], slots, shifts, hist: None }
+    }
+
+    /// The delay histogram of Δ = b − a − shift over [−span, span) in `nbins` bins of `bin_ps`.
+    pub fn histogram(shift: i64, span: i64, bin_ps: u64, nbins: usize) -> Self {
+        Group {
+            left: shift - span,
+            right: shift + span - 1,
+            h: 0,
+            shifts: vec![],
+            slots: vec![],
+            sums: vec![],
+            hist: Some(Bins { bin_ps, counts: vec![0; nbins] }),
+        }
+    }
+
+    /// Whether partners go to [`Group::bin`] (several windows, or a histogram) rather than
+    /// being counted in the loop.
+    fn sorts_partners(&self) -> bool {
+        self.shifts.len() != 1
+    }
+
+    /// Sort the partners b[from..to] of event x into the group's windows or bins.
     #[cold]
     #[inline(never)]
     pub fn bin(&mut self, b: &[u64], from: usize, to: usize, x: i64) {
+        if let Some(h) = &mut self.hist {
+            for &v in &b[from..to] {
+                let i = ((v as i64 - x - self.left) as u64 / h.bin_ps) as usize;
+                if let Some(c) = h.counts.get_mut(i) {
+                    *c += 1;
+                }
+            }
+            return;
+        }
         let mut hit = 0u64;
         for &v in &b[from..to] {
             let d = v as i64 - x;
@@ -278,7 +320,7 @@ fn count_rounds<C: Compare>(lanes: &[&[u64]; LANES], b: &[u64], groups: &mut [Gr
         }
         let xs = &buf[..m * LANES];
         for ((g, lo), hi) in groups.iter_mut().zip(lo.iter_mut()).zip(hi.iter_mut()) {
-            if g.shifts.len() == 1 {
+            if !g.sorts_partners() {
                 group_round::<C, false>(g, xs, b, lo, hi);
             } else {
                 group_round::<C, true>(g, xs, b, lo, hi);
@@ -339,7 +381,7 @@ fn group_round<C: Compare, const MULTI: bool>(g: &mut Group, xs: &[u64], b: &[u6
 fn count_lanes<C: Compare, const G: usize, const L: usize>(gs: &mut [Group], lanes: &[&[u64]; L], b: &[u64]) {
     let left: [i64; G] = std::array::from_fn(|g| gs[g].left);
     let right: [i64; G] = std::array::from_fn(|g| gs[g].right);
-    let multi: [bool; G] = std::array::from_fn(|g| gs[g].shifts.len() > 1);
+    let multi: [bool; G] = std::array::from_fn(|g| gs[g].sorts_partners());
     let mut lo: [[usize; L]; G] = std::array::from_fn(|g| std::array::from_fn(|l| lower_bound(b, lanes[l][0] as i64 + left[g])));
     let mut hi = lo;
     let (mut pairs, mut heralded) = ([0u64; G], [0u64; G]);
@@ -372,79 +414,6 @@ fn count_lanes<C: Compare, const G: usize, const L: usize>(gs: &mut [Group], lan
     for g in 0..G {
         if !multi[g] {
             gs[g].sums[0] = gs[g].sums[0] + WindowCount { pairs: pairs[g], heralded: heralded[g] };
-        }
-    }
-}
-
-/// Delay histogram over [−span, span) (Δ = b − a − shift), bins of `bin_ps`, over `a`
-/// (stride-safe for reach shift + span, as for [`count_groups`]).
-pub fn histogram(a: &[u64], b: &[u64], shift_ps: i64, span_ps: i64, bin_ps: u64, hist: &mut [u64]) {
-    histogram_on(isa(), a, b, shift_ps, span_ps, bin_ps, hist)
-}
-
-/// [`histogram`] with a chosen instruction set (as [`count_groups_on`]).
-pub fn histogram_on(isa: Isa, a: &[u64], b: &[u64], shift_ps: i64, span_ps: i64, bin_ps: u64, hist: &mut [u64]) {
-    match isa.min(detect()) {
-        // SAFETY (both): `isa()` found the features the function is compiled for.
-        #[cfg(target_arch = "x86_64")]
-        Isa::Avx512 => unsafe { histogram_avx512(a, b, shift_ps, span_ps, bin_ps, hist) },
-        #[cfg(target_arch = "x86_64")]
-        Isa::Avx2 => unsafe { histogram_avx2(a, b, shift_ps, span_ps, bin_ps, hist) },
-        _ => histogram_with::<Portable>(a, b, shift_ps, span_ps, bin_ps, hist),
-    }
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2,popcnt")]
-unsafe fn histogram_avx2(a: &[u64], b: &[u64], shift_ps: i64, span_ps: i64, bin_ps: u64, hist: &mut [u64]) {
-    histogram_with::<Avx2>(a, b, shift_ps, span_ps, bin_ps, hist)
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx512f,avx2,popcnt")]
-unsafe fn histogram_avx512(a: &[u64], b: &[u64], shift_ps: i64, span_ps: i64, bin_ps: u64, hist: &mut [u64]) {
-    histogram_with::<Avx512>(a, b, shift_ps, span_ps, bin_ps, hist)
-}
-
-#[inline(always)]
-fn histogram_with<C: Compare>(a: &[u64], b: &[u64], shift: i64, span: i64, bin_ps: u64, hist: &mut [u64]) {
-    let edges = (shift - span, shift + span - 1);
-    let rest = match split(a) {
-        Some((lanes, rest)) => {
-            histogram_lanes::<C, LANES>(&lanes, b, edges, bin_ps, hist);
-            rest
-        }
-        None => a,
-    };
-    if !rest.is_empty() {
-        histogram_lanes::<C, 1>(&[rest], b, edges, bin_ps, hist);
-    }
-}
-
-/// Every event of L equal lanes into the histogram; (left, right) = (shift − span,
-/// shift + span − 1), the Δ + shift range binned.
-#[inline(always)]
-fn histogram_lanes<C: Compare, const L: usize>(lanes: &[&[u64]; L], b: &[u64], (left, right): (i64, i64), bin_ps: u64, hist: &mut [u64]) {
-    let mut p: [usize; L] = std::array::from_fn(|l| lower_bound(b, lanes[l][0] as i64 + left));
-    let mut hi = p;
-    for i in 0..lanes[0].len() {
-        for l in 0..L {
-            // SAFETY: i < the length of lane 0, which every lane has (see `split`).
-            let x = unsafe { *lanes[l].get_unchecked(i) } as i64;
-            let (below, upto) = C::below_upto(&b[p[l]..], x + left, x + right);
-            let (from, to) = if upto < STRIDE {
-                p[l] += below;
-                (p[l], p[l] + (upto - below))
-            } else {
-                (p[l], hi[l]) = wide_step(b, p[l], hi[l], x + left, x + right);
-                (p[l], hi[l])
-            };
-            for &v in &b[from..to] {
-                let bin = ((v as i64 - x - left) as u64 / bin_ps) as usize;
-                if bin < hist.len() {
-                    hist[bin] += 1;
-                }
-            }
         }
     }
 }
