@@ -23,9 +23,11 @@ pub const LANES: usize = 8;
 /// that a stride of 4 would leave the fast path too often; 8 almost never.
 pub const STRIDE: usize = 8;
 
-/// The stride compare: of `w[..STRIDE]` (ascending), how many are < `left` and ≤ `right`.
+/// The stride compare: of `w[..STRIDE]` (ascending), how many v have v − x < `left` and
+/// v − x ≤ `right`. Comparing differences with the fixed edges lets the vector versions
+/// broadcast x once and keep the edges in registers for the whole loop.
 pub trait Compare {
-    fn below_upto(w: &[u64], left: i64, right: i64) -> (usize, usize);
+    fn below_upto(w: &[u64], x: i64, left: i64, right: i64) -> (usize, usize);
 }
 
 /// Plain integer compares (any CPU).
@@ -33,13 +35,13 @@ pub struct Portable;
 
 impl Compare for Portable {
     #[inline(always)]
-    fn below_upto(w: &[u64], left: i64, right: i64) -> (usize, usize) {
+    fn below_upto(w: &[u64], x: i64, left: i64, right: i64) -> (usize, usize) {
         let w = &w[..STRIDE];
         let mut below = 0usize;
         let mut upto = 0usize;
         for &v in w {
-            below += ((v as i64) < left) as usize;
-            upto += ((v as i64) <= right) as usize;
+            below += ((v as i64 - x) < left) as usize;
+            upto += ((v as i64 - x) <= right) as usize;
         }
         (below, upto)
     }
@@ -53,14 +55,15 @@ pub struct Avx2;
 #[cfg(target_arch = "x86_64")]
 impl Compare for Avx2 {
     #[inline(always)]
-    fn below_upto(w: &[u64], left: i64, right: i64) -> (usize, usize) {
+    fn below_upto(w: &[u64], x: i64, left: i64, right: i64) -> (usize, usize) {
         use std::arch::x86_64::*;
         let w = &w[..STRIDE];
         // SAFETY: `w` holds eight u64 (64 bytes, unaligned loads); this is only reached
         // from functions compiled with AVX2 and called after the CPU was checked for it.
         unsafe {
-            let v0 = _mm256_loadu_si256(w.as_ptr() as *const __m256i);
-            let v1 = _mm256_loadu_si256(w.as_ptr().add(4) as *const __m256i);
+            let xs = _mm256_set1_epi64x(x);
+            let v0 = _mm256_sub_epi64(_mm256_loadu_si256(w.as_ptr() as *const __m256i), xs);
+            let v1 = _mm256_sub_epi64(_mm256_loadu_si256(w.as_ptr().add(4) as *const __m256i), xs);
             let (l, r) = (_mm256_set1_epi64x(left), _mm256_set1_epi64x(right + 1));
             let mask = |c0: __m256i, c1: __m256i| {
                 let lo = _mm256_movemask_pd(_mm256_castsi256_pd(c0)) as u64;
@@ -81,13 +84,13 @@ pub struct Avx512;
 #[cfg(target_arch = "x86_64")]
 impl Compare for Avx512 {
     #[inline(always)]
-    fn below_upto(w: &[u64], left: i64, right: i64) -> (usize, usize) {
+    fn below_upto(w: &[u64], x: i64, left: i64, right: i64) -> (usize, usize) {
         use std::arch::x86_64::*;
         let w = &w[..STRIDE];
         // SAFETY: `w` holds eight u64 (64 bytes, unaligned load); this is only reached from
         // functions compiled with AVX-512F and called after the CPU was checked for it.
         unsafe {
-            let v = _mm512_loadu_si512(w.as_ptr() as *const __m512i);
+            let v = _mm512_sub_epi64(_mm512_loadu_si512(w.as_ptr() as *const __m512i), _mm512_set1_epi64(x));
             let below = _mm512_cmplt_epi64_mask(v, _mm512_set1_epi64(left));
             let upto = _mm512_cmple_epi64_mask(v, _mm512_set1_epi64(right));
             (below.count_ones() as usize, upto.count_ones() as usize)
@@ -370,7 +373,7 @@ fn group_round<C: Compare, const MODE: usize>(g: &mut Group, xs: &[u64], b: &[u6
         macro_rules! lane {
             ($p:ident, $l:expr) => {{
                 let x = row[$l] as i64;
-                let (below, upto) = C::below_upto(&b[$p..], x + left, x + right);
+                let (below, upto) = C::below_upto(&b[$p..], x, left, right);
                 let (from, to) = if upto < STRIDE {
                     $p += below;
                     ($p, $p + (upto - below))
@@ -430,7 +433,7 @@ fn count_lanes<C: Compare, const G: usize, const L: usize>(gs: &mut [Group], lan
             let x = unsafe { *lanes[l].get_unchecked(i) } as i64;
             for g in 0..G {
                 let p = &mut lo[g][l];
-                let (below, upto) = C::below_upto(&b[*p..], x + left[g], x + right[g]);
+                let (below, upto) = C::below_upto(&b[*p..], x, left[g], right[g]);
                 let (from, to) = if upto < STRIDE {
                     *p += below;
                     (*p, *p + (upto - below))
