@@ -1,7 +1,9 @@
 //! Read throughput of each input format from a warm page cache, each beside a plain sum
 //! over the same mapping in the same run (the memory-bandwidth yardstick). Files of
 //! `TAGSIEVE_BENCH_MIB` MiB (default 256) are generated in a temp dir with an integer PRNG.
-//! Targets: arrays and container ≥ 50% of the plain-sum rate; records demux ≥ 25%.
+//! Targets: arrays and container ≥ 50% of the plain-sum rate; records demux ≥ 25%. Each
+//! format is set beside two sums: one thread (`plain_sum`) and the whole rayon pool
+//! (`plain_sum_all_threads`, the stricter yardstick, as the readers run on the pool).
 
 use criterion::{black_box, criterion_group, criterion_main, Criterion, Throughput};
 use std::path::{Path, PathBuf};
@@ -62,11 +64,22 @@ fn make_files() -> Files {
 
 /// The yardstick: sum every u64 of the mapped file.
 fn plain_sum(path: &Path) -> u64 {
+    sum_mapped(path, |words| words.iter().fold(0u64, |a, &w| a.wrapping_add(w)))
+}
+
+/// The same sum on every thread of the rayon pool (the readers use them all too): the
+/// machine's memory-read rate, the stricter yardstick.
+fn plain_sum_all_threads(path: &Path) -> u64 {
+    use rayon::prelude::*;
+    sum_mapped(path, |words| words.par_chunks(1 << 16).map(|c| c.iter().fold(0u64, |a, &w| a.wrapping_add(w))).reduce(|| 0, u64::wrapping_add))
+}
+
+fn sum_mapped(path: &Path, sum: impl Fn(&[u64]) -> u64) -> u64 {
     let f = std::fs::File::open(path).expect("open");
     // SAFETY: benchmark files in our own temp dir; nobody else writes them.
     let map = unsafe { memmap2::Mmap::map(&f) }.expect("map");
     let (_, words, _) = unsafe { map.align_to::<u64>() };
-    words.iter().fold(0u64, |a, &w| a.wrapping_add(w))
+    sum(words)
 }
 
 /// Open, validate and hand out every channel (zero-copy where the format allows).
@@ -90,6 +103,7 @@ fn formats(c: &mut Criterion) {
         g.throughput(Throughput::Bytes(std::fs::metadata(path).expect("size").len()));
         let _ = plain_sum(path); // warm the page cache
         g.bench_function("plain_sum", |b| b.iter(|| black_box(plain_sum(path))));
+        g.bench_function("plain_sum_all_threads", |b| b.iter(|| black_box(plain_sum_all_threads(path))));
         g.bench_function("read", |b| b.iter(|| black_box(read_all(&arg, layout))));
         g.finish();
     }
