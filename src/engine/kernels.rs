@@ -49,11 +49,11 @@ const CLUSTER_GAP_WIDTHS: i64 = 2;
 /// Most windows one shared pointer serves (their heralded flags fit one u64).
 const CLUSTER_MAX: usize = 64;
 
-/// Add to `out[k]` the pairs and heralded A events with |b − a − shifts[k]| ≤ half, for
+/// Add to `out[k]` the pairs and heralded A events with `|b − a − shifts[k]| ≤ half`, for
 /// every shift at once (the peak and the off-peak windows together).
 ///
 /// Shifts are sorted and grouped: a group is a run of windows each within
-/// [`CLUSTER_GAP_WIDTHS`] widths of the next (the default off-peak windows lie side by
+/// `CLUSTER_GAP_WIDTHS` (2) widths of the next (the default off-peak windows lie side by
 /// side), served by one pointer into B, so ten off-peak windows cost what one does. Each
 /// group keeps a monotone pointer, the first b ≥ a + (its leftmost edge), so the pass is
 /// O(|A| + |B|) per group; the steps run on interleaved lanes ([`super::lanes`]).

@@ -254,14 +254,10 @@ fn wide_step(b: &[u64], mut lo: usize, hi: usize, left: i64, right: i64) -> (usi
     (lo, hi)
 }
 
-/// Window counts of every group over `a`, every event of which must be stride-safe for
-/// every group (lo + STRIDE ≤ |B|; see `kernels::fast_prefix`).
-pub fn count_groups(a: &[u64], b: &[u64], groups: &mut [Group]) {
-    count_groups_on(isa(), a, b, groups)
-}
-
-/// [`count_groups`] with a chosen instruction set (tests compare them); one the CPU lacks
-/// falls back to the best it has.
+/// Window counts (or histogram) of every group over `a`, every event of which must be
+/// stride-safe for every group (lo + STRIDE ≤ |B|; see `kernels::fast_prefix`), with the
+/// instructions of `isa` (normally [`isa()`]; tests compare them); one the CPU lacks falls
+/// back to the best it has.
 pub fn count_groups_on(isa: Isa, a: &[u64], b: &[u64], groups: &mut [Group]) {
     match isa.min(detect()) {
         // SAFETY (both): `isa()` found the features the function is compiled for.

@@ -3,15 +3,15 @@
 //! counter-wrap rule and the exact tick → ps conversion of [`super::layout`].
 //!
 //! A whole mapped file is demultiplexed on the rayon pool in fixed record ranges
-//! ([`RANGE_RECORDS`], the same for any thread count), a batch of ranges at a time: a
+//! (`RANGE_RECORDS`, the same for any thread count), a batch of ranges at a time: a
 //! counting pass gives each range its exact place in each channel's vector, then a
 //! filling pass writes every range into its own part (no copy afterwards). Each range
 //! starts from the record before it (previous counter) and from the wraps counted before
 //! it (epoch), so the result is the serial one bit for bit, wrapping counters included.
 //! Errors are found per range and then reported by the serial demultiplexer over the
 //! first failing range, so the message is the serial one too. The common 16-byte layout
-//! takes an AVX-512 path ([`wide`]) where the CPU has one. Buffered reads (`--no-mmap`)
-//! and chunks stay serial, in one [`Demuxer`] pass (bounded memory: a range needs the
+//! takes an AVX-512 path (`wide`) where the CPU has one. Buffered reads (`--no-mmap`)
+//! and chunks stay serial, in one `Demuxer` pass (bounded memory: a range needs the
 //! whole file's counts before it can be placed).
 
 use super::layout::{Endian, Field, RecordLayout};
