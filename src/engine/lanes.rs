@@ -294,8 +294,8 @@ fn count_groups_with<C: Compare>(a: &[u64], b: &[u64], groups: &mut [Group]) {
         None => a,
     };
     if !rest.is_empty() {
-        for g in groups.chunks_mut(1) {
-            count_lanes::<C, 1, 1>(g, &[rest], b);
+        for g in groups.iter_mut() {
+            count_serial::<C>(g, rest, b);
         }
     }
 }
@@ -412,46 +412,35 @@ fn group_round<C: Compare, const MODE: usize>(g: &mut Group, xs: &[u64], b: &[u6
     }
 }
 
-/// Every event of L equal lanes for G groups at once (used for the few events after the
-/// lanes, L = G = 1).
+/// One group over a short run of events in one plain loop (the few after the lanes, or a
+/// slice too short for them).
 #[inline(always)]
-fn count_lanes<C: Compare, const G: usize, const L: usize>(gs: &mut [Group], lanes: &[&[u64]; L], b: &[u64]) {
-    let left: [i64; G] = std::array::from_fn(|g| gs[g].left);
-    let right: [i64; G] = std::array::from_fn(|g| gs[g].right);
-    let multi: [bool; G] = std::array::from_fn(|g| gs[g].sorts_partners());
-    let mut lo: [[usize; L]; G] = std::array::from_fn(|g| std::array::from_fn(|l| lower_bound(b, lanes[l][0] as i64 + left[g])));
+fn count_serial<C: Compare>(g: &mut Group, a: &[u64], b: &[u64]) {
+    let (left, right, sorts) = (g.left, g.right, g.sorts_partners());
+    let mut lo = lower_bound(b, a[0] as i64 + left);
     let mut hi = lo;
-    let (mut pairs, mut heralded) = ([0u64; G], [0u64; G]);
-    let n = lanes[0].len();
-    for i in 0..n {
-        for l in 0..L {
-            // SAFETY: i < n, and every lane has length n (see `split`).
-            let x = unsafe { *lanes[l].get_unchecked(i) } as i64;
-            for g in 0..G {
-                let p = &mut lo[g][l];
-                let (below, upto) = C::below_upto(&b[*p..], x, left[g], right[g]);
-                let (from, to) = if upto < STRIDE {
-                    *p += below;
-                    (*p, *p + (upto - below))
-                } else {
-                    (*p, hi[g][l]) = wide_step(b, *p, hi[g][l], x + left[g], x + right[g]);
-                    (*p, hi[g][l])
-                };
-                if multi[g] {
-                    if to > from {
-                        gs[g].bin(b, from, to, x);
-                    }
-                } else {
-                    pairs[g] += (to - from) as u64;
-                    heralded[g] += (to > from) as u64;
-                }
+    let (mut pairs, mut heralded) = (0u64, 0u64);
+    for &x in a {
+        let x = x as i64;
+        let (below, upto) = C::below_upto(&b[lo..], x, left, right);
+        let (from, to) = if upto < STRIDE {
+            lo += below;
+            (lo, lo + (upto - below))
+        } else {
+            (lo, hi) = wide_step(b, lo, hi, x + left, x + right);
+            (lo, hi)
+        };
+        if sorts {
+            if to > from {
+                g.bin(b, from, to, x);
             }
+        } else {
+            pairs += (to - from) as u64;
+            heralded += (to > from) as u64;
         }
     }
-    for g in 0..G {
-        if !multi[g] {
-            gs[g].sums[0] = gs[g].sums[0] + WindowCount { pairs: pairs[g], heralded: heralded[g] };
-        }
+    if !sorts {
+        g.sums[0] = g.sums[0] + WindowCount { pairs, heralded };
     }
 }
 
