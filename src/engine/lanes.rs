@@ -181,6 +181,8 @@ pub struct Group {
 pub struct Bins {
     pub bin_ps: u64,
     pub counts: Vec<u64>,
+    /// A round's first partners, as offsets b − a − left, binned after the round.
+    pending: Vec<u64>,
 }
 
 impl Group {
@@ -198,7 +200,7 @@ impl Group {
             shifts: vec![],
             slots: vec![],
             sums: vec![],
-            hist: Some(Bins { bin_ps, counts: vec![0; nbins] }),
+            hist: Some(Bins { bin_ps, counts: vec![0; nbins], pending: vec![0; ROUND * LANES] }),
         }
     }
 
@@ -365,6 +367,7 @@ fn group_round<C: Compare, const MODE: usize>(g: &mut Group, xs: &[u64], b: &[u6
     let div = Divider::new(bins.as_ref().map_or(1, |h| h.bin_ps), (right - left + 1) as u64);
     let [mut p0, mut p1, mut p2, mut p3, mut p4, mut p5, mut p6, mut p7] = *lo;
     let (mut pairs, mut heralded) = (0u64, 0u64);
+    let mut n_pending = 0usize;
     for row in xs.chunks_exact(LANES) {
         macro_rules! lane {
             ($p:ident, $l:expr) => {{
@@ -380,9 +383,17 @@ fn group_round<C: Compare, const MODE: usize>(g: &mut Group, xs: &[u64], b: &[u6
                 };
                 if MODE == HISTOGRAM {
                     if let Some(h) = bins.as_mut() {
-                        for &v in &b[from..to] {
-                            if let Some(c) = h.counts.get_mut(div.div((v as i64 - x - left) as u64) as usize) {
-                                *c += 1;
+                        // The first partner, without a branch (whether an event has one is
+                        // unpredictable): written to the round's pending list, kept when it
+                        // exists. The rare others go straight to their bins.
+                        let first = b[from.min(b.len() - 1)];
+                        h.pending[n_pending] = (first as i64).wrapping_sub(x).wrapping_sub(left) as u64;
+                        n_pending += (to > from) as usize;
+                        if to > from + 1 {
+                            for &v in &b[from + 1..to] {
+                                if let Some(c) = h.counts.get_mut(div.div((v as i64 - x - left) as u64) as usize) {
+                                    *c += 1;
+                                }
                             }
                         }
                     }
@@ -406,6 +417,14 @@ fn group_round<C: Compare, const MODE: usize>(g: &mut Group, xs: &[u64], b: &[u6
         lane!(p7, 7);
     }
     *lo = [p0, p1, p2, p3, p4, p5, p6, p7];
+    if let Some(h) = bins.as_mut() {
+        let Bins { counts, pending, .. } = h;
+        for &d in &pending[..n_pending] {
+            if let Some(c) = counts.get_mut(div.div(d) as usize) {
+                *c += 1;
+            }
+        }
+    }
     g.hist = bins;
     if MODE == LONE {
         g.sums[0] = g.sums[0] + WindowCount { pairs, heralded };
