@@ -76,7 +76,7 @@ pub struct AccidentalArgs {
     #[arg(long, value_delimiter = ',', allow_hyphen_values = true, value_name = "PS")]
     pub acc_offsets_ps: Vec<i64>,
     /// Time-slice length for the analytic accidentals, s (rates may drift between slices).
-    #[arg(long, default_value_t = DEFAULT_SLICE_PS as f64 * 1e-12, value_name = "S")]
+    #[arg(long, default_value_t = DEFAULT_SLICE_PS as f64 / 1e12, value_name = "S")]
     pub slice_s: f64,
 }
 
