@@ -28,6 +28,8 @@ pub const STRIDE: usize = 8;
 /// broadcast x once and keep the edges in registers for the whole loop.
 pub trait Compare {
     fn below_upto(w: &[u64], x: i64, left: i64, right: i64) -> (usize, usize);
+    /// Only `below`: the step of a pointer whose partners are rare (off-peak windows).
+    fn below(w: &[u64], x: i64, left: i64) -> usize;
 }
 
 /// Plain integer compares (any CPU).
@@ -44,6 +46,11 @@ impl Compare for Portable {
             upto += ((v as i64 - x) <= right) as usize;
         }
         (below, upto)
+    }
+
+    #[inline(always)]
+    fn below(w: &[u64], x: i64, left: i64) -> usize {
+        w[..STRIDE].iter().map(|&v| ((v as i64 - x) < left) as usize).sum()
     }
 }
 
@@ -75,6 +82,21 @@ impl Compare for Avx2 {
             (below, upto)
         }
     }
+
+    #[inline(always)]
+    fn below(w: &[u64], x: i64, left: i64) -> usize {
+        use std::arch::x86_64::*;
+        let w = &w[..STRIDE];
+        // SAFETY: as in `below_upto`.
+        unsafe {
+            let l = _mm256_set1_epi64x(x + left);
+            let v0 = _mm256_loadu_si256(w.as_ptr() as *const __m256i);
+            let v1 = _mm256_loadu_si256(w.as_ptr().add(4) as *const __m256i);
+            let lo = _mm256_movemask_pd(_mm256_castsi256_pd(_mm256_cmpgt_epi64(l, v0))) as u64;
+            let hi = _mm256_movemask_pd(_mm256_castsi256_pd(_mm256_cmpgt_epi64(l, v1))) as u64;
+            (lo | hi << 4).count_ones() as usize
+        }
+    }
 }
 
 /// AVX-512: two 8-wide compares into mask registers.
@@ -94,6 +116,17 @@ impl Compare for Avx512 {
             let below = _mm512_cmplt_epi64_mask(v, _mm512_set1_epi64(left));
             let upto = _mm512_cmple_epi64_mask(v, _mm512_set1_epi64(right));
             (below.count_ones() as usize, upto.count_ones() as usize)
+        }
+    }
+
+    #[inline(always)]
+    fn below(w: &[u64], x: i64, left: i64) -> usize {
+        use std::arch::x86_64::*;
+        let w = &w[..STRIDE];
+        // SAFETY: as in `below_upto`.
+        unsafe {
+            let v = _mm512_loadu_si512(w.as_ptr() as *const __m512i);
+            _mm512_cmplt_epi64_mask(v, _mm512_set1_epi64(x + left)).count_ones() as usize
         }
     }
 }
@@ -372,6 +405,25 @@ fn group_round<C: Compare, const MODE: usize>(g: &mut Group, xs: &[u64], b: &[u6
         macro_rules! lane {
             ($p:ident, $l:expr) => {{
                 let x = row[$l] as i64;
+                if MODE == WINDOWS {
+                    // Partners are rare here: step on the left edge alone, then look at
+                    // the one b the pointer stops at (≥ the left edge) for a partner.
+                    let below = C::below(&b[$p..], x, left);
+                    if below < STRIDE {
+                        $p += below;
+                        if (b[$p] as i64) - x <= right {
+                            let (_, h2) = wide_step(b, $p, hi[$l], x + left, x + right);
+                            hi[$l] = h2;
+                            g.bin(b, $p, h2, x);
+                        }
+                    } else {
+                        let (l2, h2) = wide_step(b, $p, hi[$l], x + left, x + right);
+                        ($p, hi[$l]) = (l2, h2);
+                        if h2 > l2 {
+                            g.bin(b, l2, h2, x);
+                        }
+                    }
+                } else {
                 let (below, upto) = C::below_upto(&b[$p..], x, left, right);
                 let (from, to) = if upto < STRIDE {
                     $p += below;
@@ -397,13 +449,10 @@ fn group_round<C: Compare, const MODE: usize>(g: &mut Group, xs: &[u64], b: &[u6
                             }
                         }
                     }
-                } else if MODE == WINDOWS {
-                    if to > from {
-                        g.bin(b, from, to, x);
-                    }
                 } else {
                     pairs += (to - from) as u64;
                     heralded += (to > from) as u64;
+                }
                 }
             }};
         }
