@@ -57,6 +57,10 @@ best_of() {
 numpy() { env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE "$PYTHON" "$@"; }
 
 echo "machine: $(nproc) cores, $(uptime | sed 's/.*load/load/')" >&2
+# CPU time the hypervisor took from this machine during the run (steal), as a share of all
+# CPU time: on a shared virtual machine, figures taken while it is high are slow and noisy.
+cpu_ticks() { awk '/^cpu / { t = 0; for (i = 2; i <= 9; i++) t += $i; print t, $9 }' /proc/stat; }
+read -r TICKS0 STEAL0 < <(cpu_ticks)
 echo "input: $BYTES bytes ($A, $B)" >&2
 
 # (d) memory-read rate: best warm in-process pass and a fresh mapping's first touch.
@@ -108,3 +112,5 @@ row "numpy_scan.py" "$T_NP_SCAN" ""
 row "cat (warm cache)" "$T_CAT" ""
 printf '%-28s %9s %9.2f %10s %9.1f%%\n' "mem_read sum, first touch" "" "$MEM_FIRST" "" "$(echo "100 * $MEM_FIRST / $MEM_WARM" | bc -l)"
 printf '%-28s %9s %9.2f %10s %9.1f%%\n' "mem_read sum, warm" "" "$MEM_WARM" "" 100
+read -r TICKS1 STEAL1 < <(cpu_ticks)
+awk -v t=$((TICKS1 - TICKS0)) -v s=$((STEAL1 - STEAL0)) 'BEGIN { printf "steal during the run: %.1f%% of CPU time\n", (t > 0 ? 100 * s / t : 0) }'
