@@ -365,7 +365,8 @@ fn count_rounds<C: Compare>(lanes: &[&[u64]; LANES], b: &[u64], groups: &mut [Gr
 }
 
 /// What a group does with an event's partners: count them (a lone window), sort them into
-/// windows ([`Group::bin`], rare), or bin them into the histogram (inline, common).
+/// windows ([`Group::bin`]; the step looks at the left edge only, as partners are rare),
+/// or bin them into the histogram (first partners listed per round and binned after it).
 const LONE: usize = 0;
 const WINDOWS: usize = 1;
 const HISTOGRAM: usize = 2;
