@@ -67,26 +67,24 @@ pub fn print_counts(blocks: &[BlockTables], g: &Global) {
         return;
     }
     for b in blocks {
-        println!("block {}  (span {})", b.label, b.span.map(|s| common::ps(s.duration_ps() as f64)).unwrap_or_default());
+        println!("{}: span {}", b.label, b.span.map(|s| common::ps(s.duration_ps() as f64)).unwrap_or_else(|| "none (no events)".into()));
         println!("  {:>5} {:>12} {:>10}", "ch", "singles", "rate");
         for s in &b.singles {
             println!("  {:>5} {:>12} {:>10}", s.channel, s.events, tagsieve::units::fmt_rate_hz(s.rate_hz));
         }
-        println!(
-            "  {:>5} {:>10} {:>10} {:>12} {:>12} {:>16} {:>8}",
-            "pair", "delay", "window", "coinc", "acc(analytic)", "net ± σ", "CAR"
-        );
         for r in &b.coincidences {
+            println!("  pair {}:{}  delay {}  window {}", r.a, r.b, common::ps(r.rel_delay_ps as f64), common::ps(r.window_ps as f64));
+            println!("    coincidences  {}  (heralded A events {})", r.coincidences, r.heralded);
             println!(
-                "  {:>5} {:>10} {:>10} {:>12} {:>12.1} {:>16} {:>8.1}",
-                format!("{}:{}", r.a, r.b),
-                common::ps(r.rel_delay_ps as f64),
-                common::ps(r.window_ps as f64),
-                r.coincidences,
+                "    accidentals   analytic {:.1} ± {:.1}   measured {:.1} ± {:.1} ({} off-peak windows)   differ by {:.1} σ",
                 r.acc_analytic.value,
-                format!("{:.1} ± {:.1}", r.net.value, r.net.sigma),
-                r.car
+                r.acc_analytic.sigma,
+                r.acc_measured.value,
+                r.acc_measured.sigma,
+                r.acc_offsets_ps.len(),
+                r.acc_agreement_sigma.abs()
             );
+            println!("    net           {:.1} ± {:.1} (coincidences − analytic accidentals)   CAR {:.1}", r.net.value, r.net.sigma, r.car);
         }
     }
 }
