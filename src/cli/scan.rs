@@ -85,11 +85,12 @@ fn print_scan(block: &BlockTables, proposal: Option<&engine::Delays>, args: &Arg
         common::print_json(&v);
         return;
     }
-    println!("{:>6} {:>14} {:>10} {:>10} {:>10} {:>10}", "pair", "peak Δ", "σ", "FWHM", "height", "background");
+    let bin = block.scans.first().map(|s| common::ps(s.bin_ps as f64)).unwrap_or_default();
+    println!("{:>6} {:>14} {:>10} {:>10} {:>12} {:>12}", "pair", "peak Δ", "σ", "FWHM", "height", "background");
     for s in &block.scans {
         match s.peak {
             Some(p) => println!(
-                "{:>6} {:>14} {:>10} {:>10} {:>10.0} {:>10.1}",
+                "{:>6} {:>14} {:>10} {:>10} {:>12.0} {:>12.1}",
                 format!("{}:{}", s.a, s.b),
                 common::ps(p.delay_ps),
                 common::ps(p.delay_sigma_ps),
@@ -99,6 +100,9 @@ fn print_scan(block: &BlockTables, proposal: Option<&engine::Delays>, args: &Arg
             ),
             None => println!("{:>6} {:>14}", format!("{}:{}", s.a, s.b), "no peak"),
         }
+    }
+    if !block.scans.is_empty() {
+        println!("  (height and background: counts per {bin} bin)");
     }
     if let Some(d) = proposal {
         println!("proposed delays (reference channel {}), written to {}:", d.reference.unwrap_or(0), args.delays_out.display());
