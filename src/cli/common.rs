@@ -145,3 +145,11 @@ pub fn print_json(v: &serde_json::Value) {
 pub fn ps(v: f64) -> String {
     tagsieve::units::fmt_duration_ps(v)
 }
+
+/// An estimate `value ± sigma` with at least four significant digits of the value (one
+/// decimal for values of 1000 and more), both to the same decimals.
+pub fn estimate(value: f64, sigma: f64) -> String {
+    let magnitude = if value.abs() > 0.0 { value.abs().log10().floor() as i32 } else { 0 };
+    let decimals = (3 - magnitude).clamp(1, 6) as usize;
+    format!("{value:.decimals$} ± {sigma:.decimals$}")
+}

@@ -76,15 +76,13 @@ pub fn print_counts(blocks: &[BlockTables], g: &Global) {
             println!("  pair {}:{}  delay {}  window {}", r.a, r.b, common::ps(r.rel_delay_ps as f64), common::ps(r.window_ps as f64));
             println!("    coincidences  {}  (heralded A events {})", r.coincidences, r.heralded);
             println!(
-                "    accidentals   analytic {:.1} ± {:.1}   measured {:.1} ± {:.1} ({} off-peak windows)   differ by {:.1} σ",
-                r.acc_analytic.value,
-                r.acc_analytic.sigma,
-                r.acc_measured.value,
-                r.acc_measured.sigma,
+                "    accidentals   analytic {}   measured {} ({} off-peak windows)   differ by {:.1} σ",
+                common::estimate(r.acc_analytic.value, r.acc_analytic.sigma),
+                common::estimate(r.acc_measured.value, r.acc_measured.sigma),
                 r.acc_offsets_ps.len(),
                 r.acc_agreement_sigma.abs()
             );
-            println!("    net           {:.1} ± {:.1} (coincidences − analytic accidentals)   CAR {:.1}", r.net.value, r.net.sigma, r.car);
+            println!("    net           {} (coincidences − analytic accidentals)   CAR {:.1}", common::estimate(r.net.value, r.net.sigma), r.car);
         }
     }
 }
