@@ -425,35 +425,35 @@ fn group_round<C: Compare, const MODE: usize>(g: &mut Group, xs: &[u64], b: &[u6
                         }
                     }
                 } else {
-                let (below, upto) = C::below_upto(&b[$p..], x, left, right);
-                let (from, to) = if upto < STRIDE {
-                    $p += below;
-                    ($p, $p + (upto - below))
-                } else {
-                    let (l2, h2) = wide_step(b, $p, hi[$l], x + left, x + right);
-                    ($p, hi[$l]) = (l2, h2);
-                    (l2, h2)
-                };
-                if MODE == HISTOGRAM {
-                    if let Some(h) = bins.as_mut() {
-                        // The first partner, without a branch (whether an event has one is
-                        // unpredictable): written to the round's pending list, kept when it
-                        // exists. The rare others go straight to their bins.
-                        let first = b[from.min(b.len() - 1)];
-                        h.pending[n_pending] = (first as i64).wrapping_sub(x).wrapping_sub(left) as u64;
-                        n_pending += (to > from) as usize;
-                        if to > from + 1 {
-                            for &v in &b[from + 1..to] {
-                                if let Some(c) = h.counts.get_mut(div.div((v as i64 - x - left) as u64) as usize) {
-                                    *c += 1;
+                    let (below, upto) = C::below_upto(&b[$p..], x, left, right);
+                    let (from, to) = if upto < STRIDE {
+                        $p += below;
+                        ($p, $p + (upto - below))
+                    } else {
+                        let (l2, h2) = wide_step(b, $p, hi[$l], x + left, x + right);
+                        ($p, hi[$l]) = (l2, h2);
+                        (l2, h2)
+                    };
+                    if MODE == HISTOGRAM {
+                        if let Some(h) = bins.as_mut() {
+                            // The first partner, without a branch (whether an event has one is
+                            // unpredictable): written to the round's pending list, kept when it
+                            // exists. The rare others go straight to their bins.
+                            let first = b[from.min(b.len() - 1)];
+                            h.pending[n_pending] = (first as i64).wrapping_sub(x).wrapping_sub(left) as u64;
+                            n_pending += (to > from) as usize;
+                            if to > from + 1 {
+                                for &v in &b[from + 1..to] {
+                                    if let Some(c) = h.counts.get_mut(div.div((v as i64 - x - left) as u64) as usize) {
+                                        *c += 1;
+                                    }
                                 }
                             }
                         }
+                    } else {
+                        pairs += (to - from) as u64;
+                        heralded += (to > from) as u64;
                     }
-                } else {
-                    pairs += (to - from) as u64;
-                    heralded += (to > from) as u64;
-                }
                 }
             }};
         }
