@@ -149,7 +149,17 @@ pub fn ps(v: f64) -> String {
 /// An estimate `value ± sigma` with at least four significant digits of the value (one
 /// decimal for values of 1000 and more), both to the same decimals.
 pub fn estimate(value: f64, sigma: f64) -> String {
-    let magnitude = if value.abs() > 0.0 { value.abs().log10().floor() as i32 } else { 0 };
-    let decimals = (3 - magnitude).clamp(1, 6) as usize;
+    let decimals = decimals_for(value);
     format!("{value:.decimals$} ± {sigma:.decimals$}")
+}
+
+/// A value with at least four significant digits (one decimal from 1000 up).
+pub fn value(v: f64) -> String {
+    let decimals = decimals_for(v);
+    format!("{v:.decimals$}")
+}
+
+fn decimals_for(v: f64) -> usize {
+    let magnitude = if v.abs() > 0.0 && v.is_finite() { v.abs().log10().floor() as i32 } else { 0 };
+    (3 - magnitude).clamp(1, 6) as usize
 }

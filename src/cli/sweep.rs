@@ -100,15 +100,16 @@ fn print_sweep(block: &BlockTables, g: &Global) {
     }
     for s in &block.sweeps {
         println!("pair {}:{}  (δ = {}; recommended window {} by {})", s.a, s.b, common::ps(s.rel_delay_ps as f64), common::ps(s.recommended_window_ps as f64), s.criterion);
-        println!("  {:>10} {:>12} {:>12} {:>12} {:>16} {:>8} {:>8}", "window", "coinc", "acc(analyt)", "acc(meas)", "net ± σ", "net/σ", "CAR");
+        println!("  {:>10} {:>12} {:>12} {:>12} {:>6} {:>21} {:>8} {:>8}", "window", "coinc", "acc(analyt)", "acc(meas)", "Δ/σ", "net ± σ", "net/σ", "CAR");
         for r in &s.rows {
             let mark = if r.window_ps == s.recommended_window_ps { " <" } else { "" };
             println!(
-                "  {:>10} {:>12} {:>12.1} {:>12.1} {:>16} {:>8.1} {:>8.1}{mark}",
+                "  {:>10} {:>12} {:>12} {:>12} {:>6.1} {:>21} {:>8.1} {:>8.1}{mark}",
                 common::ps(r.window_ps as f64),
                 r.coincidences,
-                r.acc_analytic.value,
-                r.acc_measured.value,
+                common::value(r.acc_analytic.value),
+                common::value(r.acc_measured.value),
+                r.acc_agreement_sigma.abs(),
                 format!("{:.1} ± {:.1}", r.net.value, r.net.sigma),
                 r.net.value / r.net.sigma,
                 r.car
