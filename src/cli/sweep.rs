@@ -110,7 +110,7 @@ fn print_sweep(block: &BlockTables, g: &Global) {
                 common::value(r.acc_analytic.value),
                 common::value(r.acc_measured.value),
                 r.acc_agreement_sigma.abs(),
-                format!("{:.1} ± {:.1}", r.net.value, r.net.sigma),
+                common::estimate(r.net.value, r.net.sigma),
                 r.net.value / r.net.sigma,
                 r.car
             );
