@@ -8,8 +8,12 @@ use common::tagsieve;
 use serde_json::Value;
 
 fn count(dir: &std::path::Path, json: bool) -> String {
+    count_with(dir, json, &[])
+}
+
+fn count_with(dir: &std::path::Path, json: bool, extra: &[&str]) -> String {
     let mut c = tagsieve();
-    c.args(["count", "--quiet", "--pairs", "1:3", "--delay", "3=41250", "-w", "1000"]);
+    c.args(["count", "--quiet", "--pairs", "1:3", "--delay", "3=41250", "-w", "1000"]).args(extra);
     if json {
         c.arg("--json");
     }
@@ -18,8 +22,7 @@ fn count(dir: &std::path::Path, json: bool) -> String {
     String::from_utf8(out.stdout).unwrap()
 }
 
-#[test]
-fn human_report_carries_both_accidental_estimates() {
+fn simulated() -> tempfile::TempDir {
     let dir = tempfile::tempdir().unwrap();
     let sim = tagsieve()
         .args(["simulate", "--quiet", "--force", "--format", "arrays", "--series", "22.5", "--duration-s", "0.5", "--out"])
@@ -27,6 +30,31 @@ fn human_report_carries_both_accidental_estimates() {
         .output()
         .unwrap();
     assert!(sim.status.success(), "{}", String::from_utf8_lossy(&sim.stderr));
+    dir
+}
+
+#[test]
+fn without_off_peak_windows_the_counts_stay_and_no_measured_estimate_is_made() {
+    // --no-offpeak drops only the off-peak windows: coincidences, heralded count and the
+    // analytic estimate equal the default run's; the measured estimate is absent (null).
+    let dir = simulated();
+    let full: Value = serde_json::from_str(&count(dir.path(), true)).unwrap();
+    let bare: Value = serde_json::from_str(&count_with(dir.path(), true, &["--no-offpeak"])).unwrap();
+    let (f, b) = (&full["blocks"][0]["coincidences"][0], &bare["blocks"][0]["coincidences"][0]);
+    for k in ["coincidences", "heralded", "acc_analytic", "net"] {
+        assert_eq!(f[k], b[k], "{k}");
+    }
+    assert!(f["acc_offsets_ps"].as_array().unwrap().len() == 10 && b["acc_offsets_ps"].as_array().unwrap().is_empty());
+    assert!(b["acc_measured"]["value"].is_null(), "{}", b["acc_measured"]);
+    let text = count_with(dir.path(), false, &["--no-offpeak"]);
+    assert!(text.contains("measured: none (no off-peak windows counted)"), "{text}");
+    let both = tagsieve().args(["count", "--no-offpeak", "--acc-offsets-ps", "2000000", "1=x"]).output().unwrap();
+    assert_eq!(both.status.code(), Some(2), "--no-offpeak with --acc-offsets-ps must be refused");
+}
+
+#[test]
+fn human_report_carries_both_accidental_estimates() {
+    let dir = simulated();
     let v: Value = serde_json::from_str(&count(dir.path(), true)).unwrap();
     let r = &v["blocks"][0]["coincidences"][0];
     let text = count(dir.path(), false);

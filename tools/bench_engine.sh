@@ -71,9 +71,11 @@ T_CAT=$(best_of "$REPS" sh -c 'cat "$0" "$1" >/dev/null' "$A" "$B")   # to /dev/
 
 # (a) whole count process, (b) whole scan process.
 COUNT=("$TS" count -q --json --threads "$THREADS" --pairs 1:3 --delay 3=$DELTA_PS -w $WINDOW_PS "1=$A" "3=$B")
-T_COUNT1=$(best_of "$REPS" "${COUNT[@]}" --acc-offsets-ps 1000000)
+T_COUNT0=$(best_of "$REPS" "${COUNT[@]}" --no-offpeak)
 T_COUNT=$(best_of "$REPS" "${COUNT[@]}")
 TS_PAIRS=$("$PYTHON" -c 'import json,sys; r=json.load(open(sys.argv[1]))["blocks"][0]["coincidences"][0]; print(r["coincidences"], r["heralded"])' "$OUTFILE")
+OFFSETS=$("$PYTHON" -c 'import json,sys; r=json.load(open(sys.argv[1]))["blocks"][0]["coincidences"][0]; print(",".join(map(str, r["acc_offsets_ps"])))' "$OUTFILE")
+TS_OFF=$("$PYTHON" -c 'import json,sys; r=json.load(open(sys.argv[1]))["blocks"][0]["coincidences"][0]; print(",".join(map(str, r["acc_offset_counts"])))' "$OUTFILE")
 SCAN=("$TS" scan -q --json --threads "$THREADS" --pairs 1:3 --delay 3=$DELTA_PS --span-ps $SPAN_PS --bin-ps $BIN_PS "1=$A" "3=$B")
 T_SCAN=$(best_of "$REPS" "${SCAN[@]}")
 TS_HIST=$("$PYTHON" -c 'import json,sys; d=json.load(open(sys.argv[1])); print(",".join(map(str, d["scans"][0]["counts"])))' "$OUTFILE")
@@ -84,33 +86,42 @@ PREFIX_ARGS=()
 A_EVENTS=$(( $(stat -c %s "$A") / 8 ))
 T_NP_COUNT=$(best_of 1 numpy tools/numpy_count.py "1=$A" "3=$B" --window-ps $WINDOW_PS --delta-ps $DELTA_PS "${PREFIX_ARGS[@]}")
 NP_PAIRS=$(sed -n 's/^pairs=\([0-9]*\) heralded=\([0-9]*\).*/\1 \2/p' "$OUTFILE")
+# The same peak window plus the ten off-peak windows `count` measured (the same work).
+T_NP_COUNT_OFF=$(best_of 1 numpy tools/numpy_count.py "1=$A" "3=$B" --window-ps $WINDOW_PS --delta-ps $DELTA_PS --offsets-ps="$OFFSETS" "${PREFIX_ARGS[@]}")
+NP_OFF=$(sed -n 's/.* offpeak=\([0-9,]*\) .*/\1/p' "$OUTFILE")
 T_NP_SCAN=$(best_of 1 numpy tools/numpy_scan.py "1=$A" "3=$B" --span-ps $SPAN_PS --bin-ps $BIN_PS --delta-ps $DELTA_PS "${PREFIX_ARGS[@]}")
 NP_HIST=$(sed -n 2p "$OUTFILE")
 if (( NUMPY_PREFIX > 0 )); then
     SCALE=$(echo "$A_EVENTS / $NUMPY_PREFIX" | bc -l)
     T_NP_COUNT=$(echo "$T_NP_COUNT * $SCALE" | bc -l)
+    T_NP_COUNT_OFF=$(echo "$T_NP_COUNT_OFF * $SCALE" | bc -l)
     T_NP_SCAN=$(echo "$T_NP_SCAN * $SCALE" | bc -l)
     echo "NumPy timed on the first $NUMPY_PREFIX of $A_EVENTS A events and scaled linearly; counts not compared" >&2
 else
     [[ $TS_PAIRS == "$NP_PAIRS" ]] || { echo "COUNT MISMATCH: tagsieve $TS_PAIRS, NumPy $NP_PAIRS" >&2; exit 1; }
+    [[ $TS_OFF == "$NP_OFF" ]] || { echo "OFF-PEAK MISMATCH: tagsieve $TS_OFF, NumPy $NP_OFF" >&2; exit 1; }
     [[ $TS_HIST == "$NP_HIST" ]] || { echo "SCAN MISMATCH between tagsieve and NumPy histograms" >&2; exit 1; }
-    echo "counts agree: pairs heralded = $TS_PAIRS; scan histograms equal ($(( (2 * SPAN_PS + BIN_PS - 1) / BIN_PS )) bins)" >&2
+    echo "counts agree: pairs heralded = $TS_PAIRS; off-peak windows = $TS_OFF; scan histograms equal ($(( (2 * SPAN_PS + BIN_PS - 1) / BIN_PS )) bins)" >&2
 fi
 
 row() {  # name seconds numpy_seconds
     awk -v n="$1" -v t="$2" -v np="$3" -v b="$BYTES" -v m="$MEM_WARM" 'BEGIN {
         g = b / t / 1e9
         r = (np == "") ? "" : sprintf("%.1f", np / t)
-        printf "%-28s %9.3f %9.2f %10s %9.1f%%\n", n, t, g, r, 100 * g / m }'
+        printf "%-36s %9.3f %9.2f %10s %9.1f%%\n", n, t, g, r, 100 * g / m }'
 }
-printf '%-28s %9s %9s %10s %10s\n' "run ($THREADS threads)" "wall s" "GB/s" "× NumPy" "% mem-read"
-row "tagsieve count, 10 off-peak" "$T_COUNT" "$T_NP_COUNT"
-row "tagsieve count, 1 off-peak" "$T_COUNT1" "$T_NP_COUNT"
-row "tagsieve scan" "$T_SCAN" "$T_NP_SCAN"
-row "numpy_count.py" "$T_NP_COUNT" ""
+printf '%-36s %9s %9s %10s %10s\n' "run ($THREADS threads)" "wall s" "GB/s" "× NumPy" "% mem-read"
+# Same work on both sides in the first two rows; the third sets the default count (which
+# also measures accidentals in ten off-peak windows) beside the peak-only script.
+row "count --no-offpeak / numpy peak" "$T_COUNT0" "$T_NP_COUNT"
+row "count (default) / numpy peak+10" "$T_COUNT" "$T_NP_COUNT_OFF"
+row "count (default) / numpy peak" "$T_COUNT" "$T_NP_COUNT"
+row "scan / numpy_scan.py" "$T_SCAN" "$T_NP_SCAN"
+row "numpy_count.py (peak)" "$T_NP_COUNT" ""
+row "numpy_count.py (peak + 10 off-peak)" "$T_NP_COUNT_OFF" ""
 row "numpy_scan.py" "$T_NP_SCAN" ""
 row "cat (warm cache)" "$T_CAT" ""
-printf '%-28s %9s %9.2f %10s %9.1f%%\n' "mem_read sum, first touch" "" "$MEM_FIRST" "" "$(echo "100 * $MEM_FIRST / $MEM_WARM" | bc -l)"
-printf '%-28s %9s %9.2f %10s %9.1f%%\n' "mem_read sum, warm" "" "$MEM_WARM" "" 100
+printf '%-36s %9s %9.2f %10s %9.1f%%\n' "mem_read sum, first touch" "" "$MEM_FIRST" "" "$(echo "100 * $MEM_FIRST / $MEM_WARM" | bc -l)"
+printf '%-36s %9s %9.2f %10s %9.1f%%\n' "mem_read sum, warm" "" "$MEM_WARM" "" 100
 read -r TICKS1 STEAL1 < <(cpu_ticks)
 awk -v t=$((TICKS1 - TICKS0)) -v s=$((STEAL1 - STEAL0)) 'BEGIN { printf "steal during the run: %.1f%% of CPU time\n", (t > 0 ? 100 * s / t : 0) }'

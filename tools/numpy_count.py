@@ -5,6 +5,11 @@ What a lab writes today: memory-map the two per-channel u64 arrays (`CH=PATH`, a
 by `tagsieve simulate --format arrays`), then for each A event find its B partners with
 np.searchsorted. Rule (the same as tagsieve's): Δ = b − a − δ in int64 ps, a pair
 coincides when |Δ| ≤ w // 2. Prints `pairs=N heralded=M a_events=K seconds=S`.
+
+With `--offsets-ps O1,O2,...` it also counts pairs in windows of the same width centred
+O_k from the peak (the off-peak windows `tagsieve count` measures accidentals in; windows
+side by side share their edge searches) and prints `offpeak=N1,N2,...` after the pairs,
+so the default `tagsieve count` can be timed against a script doing the same work.
 """
 import argparse
 import time
@@ -50,16 +55,37 @@ def count(a, b, delta_ps, window_ps, chunk):
     return pairs, heralded
 
 
+def offpeak(a, b, delta_ps, window_ps, offsets_ps, chunk):
+    """Pairs in each off-peak window, one searchsorted per distinct window edge."""
+    half = window_ps // 2
+    # Edges as (value, side): window k is [c − half, c + half]; side by side windows
+    # (c' = c + 2·half + 1) share the edge c + half + 1 ("left") = c + half ("right").
+    lows = [o - half for o in offsets_ps]
+    highs = [o + half + 1 for o in offsets_ps]      # upper bound "right" of o + half
+    edges = sorted(set(lows) | set(highs))
+    index = {e: i for i, e in enumerate(edges)}
+    sums = np.zeros(len(edges), dtype=np.int64)
+    for s in range(0, len(a), chunk):
+        x = a[s:s + chunk].astype(np.int64) + delta_ps
+        for i, e in enumerate(edges):
+            sums[i] += int(np.searchsorted(b, x + e, side="left").sum())
+    return [int(sums[index[hi]] - sums[index[lo]]) for lo, hi in zip(lows, highs)]
+
+
 def main():
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     common_args(p)
     p.add_argument("--window-ps", type=int, required=True, help="coincidence window w, ps")
+    p.add_argument("--offsets-ps", default="", help="off-peak window centres from the peak, ps, comma-separated (default none)")
     args = p.parse_args()
+    offsets = [int(o) for o in args.offsets_ps.split(",") if o.strip()]
     t0 = time.perf_counter()
     a, b = open_pair(args)
     pairs, heralded = count(a, b, args.delta_ps, args.window_ps, args.chunk_events)
+    off = offpeak(a, b, args.delta_ps, args.window_ps, offsets, args.chunk_events) if offsets else []
     dt = time.perf_counter() - t0
-    print(f"pairs={pairs} heralded={heralded} a_events={len(a)} seconds={dt:.3f}")
+    extra = f" offpeak={','.join(map(str, off))}" if offsets else ""
+    print(f"pairs={pairs} heralded={heralded}{extra} a_events={len(a)} seconds={dt:.3f}")
 
 
 if __name__ == "__main__":

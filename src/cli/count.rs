@@ -75,13 +75,17 @@ pub fn print_counts(blocks: &[BlockTables], g: &Global) {
         for r in &b.coincidences {
             println!("  pair {}:{}  delay {}  window {}", r.a, r.b, common::ps(r.rel_delay_ps as f64), common::ps(r.window_ps as f64));
             println!("    coincidences  {}  (heralded A events {})", r.coincidences, r.heralded);
-            println!(
-                "    accidentals   analytic {}   measured {} ({} off-peak windows)   differ by {:.1} σ",
-                common::estimate(r.acc_analytic.value, r.acc_analytic.sigma),
-                common::estimate(r.acc_measured.value, r.acc_measured.sigma),
-                r.acc_offsets_ps.len(),
-                r.acc_agreement_sigma.abs()
-            );
+            if r.acc_offsets_ps.is_empty() {
+                println!("    accidentals   analytic {}   measured: none (no off-peak windows counted)", common::estimate(r.acc_analytic.value, r.acc_analytic.sigma));
+            } else {
+                println!(
+                    "    accidentals   analytic {}   measured {} ({} off-peak windows)   differ by {:.1} σ",
+                    common::estimate(r.acc_analytic.value, r.acc_analytic.sigma),
+                    common::estimate(r.acc_measured.value, r.acc_measured.sigma),
+                    r.acc_offsets_ps.len(),
+                    r.acc_agreement_sigma.abs()
+                );
+            }
             println!("    net           {} (coincidences − analytic accidentals)   CAR {:.1}", common::estimate(r.net.value, r.net.sigma), r.car);
         }
     }

@@ -14,7 +14,7 @@
 //! the partners, as B is sorted. The loops are compiled twice, for the baseline target and
 //! with AVX2 and with AVX-512 (the compare becomes vector compares); [`isa`] picks at run time.
 
-use super::kernels::{lower_bound, WindowCount};
+use super::kernels::{lower_bound, lower_bound_from, WindowCount};
 
 /// Independent pointer chains one loop carries.
 pub const LANES: usize = 8;
@@ -341,7 +341,19 @@ fn count_groups_with<C: Compare>(a: &[u64], b: &[u64], groups: &mut [Group]) {
 #[inline(always)]
 fn count_rounds<C: Compare>(lanes: &[&[u64]; LANES], b: &[u64], groups: &mut [Group]) {
     let n = lanes[0].len();
-    let mut lo: Vec<[usize; LANES]> = groups.iter().map(|g| std::array::from_fn(|l| lower_bound(b, lanes[l][0] as i64 + g.left))).collect();
+    // Lane l starts after lane l − 1 in time, so its pointer is found by galloping up from
+    // that lane's (a plain bisection from B's middle would miss the cache at every level).
+    let mut lo: Vec<[usize; LANES]> = groups
+        .iter()
+        .map(|g| {
+            let mut at = [0usize; LANES];
+            for l in 0..LANES {
+                let x = lanes[l][0] as i64 + g.left;
+                at[l] = if l == 0 { lower_bound(b, x) } else { lower_bound_from(b, at[l - 1], x) };
+            }
+            at
+        })
+        .collect();
     let mut hi = lo.clone();
     let mut buf = [0u64; ROUND * LANES];
     let mut r = 0;
