@@ -37,7 +37,20 @@ if [[ ! -s $A || ! -s $B ]]; then
 fi
 BYTES=$(( $(stat -c %s "$A") + $(stat -c %s "$B") ))
 (( BYTES >= 1000000000 )) || { echo "input is only $BYTES bytes (< 1 GB)" >&2; exit 1; }
-cat "$A" "$B" >/dev/null   # warm page cache: every figure below is from memory, not disk
+# A defined page-cache state for every figure below (from memory, not disk): drop the two
+# files from the cache, then read them once through tagsieve's mapping (sequential and
+# huge-page advice), as the first pass over a run does. How the cache was filled matters:
+# a file cached in 4 KiB pages costs each later process ≈ 60 ms per GB more to map and to
+# unmap (docs/benchmarks.md, "Fourth session"); NumPy, compute-bound, does not notice.
+"$PYTHON" - "$A" "$B" <<'PY'
+import os, sys
+for p in sys.argv[1:]:
+    fd = os.open(p, os.O_RDONLY)
+    os.fdatasync(fd)
+    os.posix_fadvise(fd, 0, 0, os.POSIX_FADV_DONTNEED)
+    os.close(fd)
+PY
+"$TS" inspect -q --threads "$THREADS" "1=$A" "3=$B" >/dev/null
 
 # best-of-REPS wall time of a command, seconds; its last stdout goes to $OUTFILE.
 OUTFILE=$(mktemp)

@@ -81,14 +81,22 @@ pub fn count_upto(v: &[u64], x: i64) -> u64 {
     upper_bound(v, x) as u64
 }
 
-/// Mean of K off-peak window counts with Poisson σ of the mean: sqrt(ΣN)/K.
+/// Upper end of the one-sided 84.13 % (1σ) Poisson confidence interval for zero observed
+/// events: −ln(1 − 0.8413) = 1.841 (Gehrels, Astrophys. J. 303, 336 (1986), Table 1).
+pub const ZERO_COUNT_UPPER_1SIGMA: f64 = 1.841;
+
+/// Mean of K off-peak window counts with Poisson σ of the mean: sqrt(ΣN)/K. When no
+/// window holds a pair (ΣN = 0), sqrt(0) would claim the mean is exactly 0; σ is then
+/// the 1σ upper limit [`ZERO_COUNT_UPPER_1SIGMA`]/K, so that the agreement with the
+/// analytic estimate stays meaningful on short runs.
 pub fn measured_estimate(counts: &[u64]) -> Estimate {
     if counts.is_empty() {
         return Estimate { value: f64::NAN, sigma: f64::NAN };
     }
     let k = counts.len() as f64;
     let total: u64 = counts.iter().sum();
-    Estimate { value: total as f64 / k, sigma: (total as f64).sqrt() / k }
+    let sigma = if total == 0 { ZERO_COUNT_UPPER_1SIGMA } else { (total as f64).sqrt() };
+    Estimate { value: total as f64 / k, sigma: sigma / k }
 }
 
 /// (x − y)/sqrt(σx² + σy²); 0 when both are exact and equal.
@@ -104,6 +112,23 @@ pub fn agreement_sigma(x: Estimate, y: Estimate) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn measured_estimate_is_the_mean_with_poisson_sigma_and_an_upper_limit_at_zero() {
+        // ΣN = 400 over K = 10: 40 ± sqrt(400)/10 = 2.
+        let e = measured_estimate(&[38, 42, 40, 39, 41, 40, 40, 41, 39, 40]);
+        assert_eq!((e.value, e.sigma), (40.0, 2.0));
+        // No pair in any window: 0 with the one-sided 84.13 % upper limit, 1.841/K
+        // (Gehrels, ApJ 303, 336 (1986), Table 1; exact: −ln(0.1587) = 1.8408).
+        let z = measured_estimate(&[0; 10]);
+        assert_eq!(z.value, 0.0);
+        assert!((z.sigma - 0.1841).abs() < 1e-12, "{}", z.sigma);
+        assert!((-(1.0f64 - 0.841_344_746).ln() - ZERO_COUNT_UPPER_1SIGMA).abs() < 1e-3);
+        // so an analytic 0.30 ± 0.004 is 1.6 σ away, not 75 σ.
+        let a = agreement_sigma(Estimate { value: 0.30, sigma: 0.004 }, z);
+        assert!(a > 1.0 && a < 2.0, "{a}");
+        assert!(measured_estimate(&[]).value.is_nan());
+    }
 
     #[test]
     fn uniform_slices_sum_like_one_slice() {

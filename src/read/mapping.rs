@@ -42,7 +42,8 @@ impl Mapping {
         unsafe { Self::open_mapped(path) }
     }
 
-    /// Map `path` read-only and ask the kernel for sequential read-ahead.
+    /// Map `path` read-only and ask the kernel for sequential read-ahead (and, on Linux,
+    /// huge page-cache folios).
     ///
     /// # Safety
     /// The caller promises that no process truncates, shrinks or rewrites the file while
@@ -64,6 +65,13 @@ impl Mapping {
         };
         #[cfg(unix)]
         let _ = map.advise(memmap2::Advice::Sequential);
+        // Huge-page advice: on Linux, pages this mapping reads in from disk come as 2 MiB
+        // page-cache folios mapped whole, so the first touch and the unmapping at the end
+        // cost a few ms per GB instead of ~60 ms per GB with 4 KiB pages (the unmapping
+        // is serial and used to be a quarter of a `scan`; docs/benchmarks.md). Advice only:
+        // refused or ignored, nothing changes but the speed.
+        #[cfg(target_os = "linux")]
+        let _ = map.advise(memmap2::Advice::HugePage);
         let mut m = Mapping::new(path, size_bytes, mtime, Backing::Mapped(map));
         #[cfg(unix)]
         if let Backing::Mapped(map) = &m.backing {
