@@ -2,6 +2,7 @@
 //! and SciPy. Synthetic counts come from a small PRNG defined here (fixed seeds).
 
 mod common;
+use common::SplitMix64;
 
 use std::f64::consts::{FRAC_PI_2, PI, SQRT_2};
 use tagsieve::analysis::bell3::{self, Convention};
@@ -10,54 +11,6 @@ use tagsieve::analysis::stats;
 use tagsieve::analysis::visibility::{fit_visibility, AnglePoint};
 use tagsieve::engine::tables::Estimate;
 
-/// SplitMix64 (Steele, Lea, Flood, OOPSLA 2014): small, good enough for test draws.
-struct Rng(u64);
-
-impl Rng {
-    fn next_u64(&mut self) -> u64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
-    }
-    /// Uniform in [0, 1).
-    fn uniform(&mut self) -> f64 {
-        (self.next_u64() >> 11) as f64 / (1u64 << 53) as f64
-    }
-    /// Poisson(λ): Knuth's product method on pieces of λ ≤ 200 (a sum of independent
-    /// Poisson variables is Poisson), so e^{−λ} never underflows.
-    fn poisson(&mut self, lambda: f64) -> u64 {
-        if lambda > 200.0 {
-            return self.poisson(lambda / 2.0) + self.poisson(lambda / 2.0);
-        }
-        let limit = (-lambda).exp();
-        let (mut k, mut p) = (0u64, self.uniform());
-        while p > limit {
-            k += 1;
-            p *= self.uniform();
-        }
-        k
-    }
-    /// Multinomial draw of `n` events over four cells with probabilities `p`.
-    fn multinomial4(&mut self, n: u64, p: [f64; 4]) -> [u64; 4] {
-        let mut out = [0u64; 4];
-        for _ in 0..n {
-            let u = self.uniform();
-            let mut acc = 0.0;
-            let mut cell = 3;
-            for (i, pi) in p.iter().enumerate() {
-                acc += pi;
-                if u < acc {
-                    cell = i;
-                    break;
-                }
-            }
-            out[cell] += 1;
-        }
-        out
-    }
-}
 
 /// The standard CHSH angles in degrees (CHSH, PRL 23, 880 (1969)): a, a', b, b'.
 const A: f64 = 0.0;
@@ -88,7 +41,7 @@ fn quantum_probs(alpha_deg: f64, beta_deg: f64, v: f64) -> [f64; 4] {
     [(1.0 + e) / 4.0, (1.0 - e) / 4.0, (1.0 - e) / 4.0, (1.0 + e) / 4.0]
 }
 
-fn quantum_blocks(rng: &mut Rng, n: u64, v: f64) -> Vec<SettingCounts> {
+fn quantum_blocks(rng: &mut SplitMix64, n: u64, v: f64) -> Vec<SettingCounts> {
     settings()
         .iter()
         .map(|&(la, lb, al, be)| block(la, lb, al, be, rng.multinomial4(n, quantum_probs(al, be, v))))
@@ -100,7 +53,7 @@ fn quantum_counts_give_s_near_two_root_two_v() {
     // Expected S = 2√2·V at the standard angles: CHSH, Phys. Rev. Lett. 23, 880 (1969);
     // 2√2 is the quantum bound, Cirel'son, Lett. Math. Phys. 4, 93 (1980).
     let v = 0.95;
-    let mut rng = Rng(0x5EED_0001);
+    let mut rng = SplitMix64(0x5EED_0001);
     let r = chsh::evaluate(&quantum_blocks(&mut rng, 20_000, v)).unwrap();
     let p = r.raw.primary();
     let expected = 2.0 * SQRT_2 * v;
@@ -120,7 +73,7 @@ fn accidental_correction_restores_the_signal_value() {
     // A flat background of b counts per cell adds to every combination; subtracting it
     // recovers E = V·cos 2(α − β) (same sources as above); the raw S is pulled towards 0.
     let (v, bg) = (0.98, 800.0);
-    let mut rng = Rng(0x5EED_0002);
+    let mut rng = SplitMix64(0x5EED_0002);
     let blocks: Vec<SettingCounts> = quantum_blocks(&mut rng, 20_000, v)
         .into_iter()
         .map(|mut b| {
@@ -150,7 +103,7 @@ fn one_detector_per_side_rates() {
     // while E from the raw counts is biased by the unequal live times.
     let (v, rate_hz) = (0.9, 4000.0);
     let live_s = [2.0, 5.0, 3.0, 1.5];
-    let mut rng = Rng(0x5EED_0007);
+    let mut rng = SplitMix64(0x5EED_0007);
     let blocks: Vec<SettingCounts> = settings()
         .iter()
         .map(|&(la, lb, al, be)| {
@@ -184,7 +137,7 @@ fn one_detector_per_side_rates() {
 fn sigma_s_agrees_with_poisson_resampling() {
     // Monte-Carlo check of the analytic σ_S (common practice, no source): resample every
     // count as Poisson(observed) 2000 times; the spread of S must match within 10%.
-    let mut rng = Rng(0x5EED_0003);
+    let mut rng = SplitMix64(0x5EED_0003);
     let blocks = quantum_blocks(&mut rng, 1_500, 0.9);
     let r = chsh::evaluate(&blocks).unwrap();
     let sigma = r.raw.primary().sigma;
@@ -209,7 +162,7 @@ fn sigma_s_agrees_with_poisson_resampling() {
 /// Deterministic shared-polarization model: both photons carry polarization λ uniform on
 /// [0, π); each analyzer answers +1 when λ is within 45° of its axis. Its correlation is
 /// the triangle E = 1 − 4|α − β|/π for |α − β| ≤ π/2 (from memory; a standard local model).
-fn lhv_counts(rng: &mut Rng, n: u64, alpha_deg: f64, beta_deg: f64) -> [u64; 4] {
+fn lhv_counts(rng: &mut SplitMix64, n: u64, alpha_deg: f64, beta_deg: f64) -> [u64; 4] {
     let mut c = [0u64; 4];
     for _ in 0..n {
         let lambda = rng.uniform() * PI;
@@ -225,7 +178,7 @@ fn lhv_counts(rng: &mut Rng, n: u64, alpha_deg: f64, beta_deg: f64) -> [u64; 4] 
     c
 }
 
-fn lhv_blocks(rng: &mut Rng, n: u64) -> Vec<SettingCounts> {
+fn lhv_blocks(rng: &mut SplitMix64, n: u64) -> Vec<SettingCounts> {
     settings().iter().map(|&(la, lb, al, be)| block(la, lb, al, be, lhv_counts(rng, n, al, be))).collect()
 }
 
@@ -233,7 +186,7 @@ fn lhv_blocks(rng: &mut Rng, n: u64) -> Vec<SettingCounts> {
 fn local_model_does_not_violate() {
     // |S| ≤ 2 for every local model (CHSH, Phys. Rev. Lett. 23, 880 (1969)); the triangle
     // model reaches exactly 2 at the standard angles.
-    let mut rng = Rng(0x5EED_0004);
+    let mut rng = SplitMix64(0x5EED_0004);
     let r = chsh::evaluate(&lhv_blocks(&mut rng, 20_000)).unwrap();
     for v in &r.raw.variants {
         assert!(v.s.abs() <= 2.0 + 3.0 * v.sigma, "variant {}: S = {} ± {}", v.minus_term, v.s, v.sigma);
@@ -279,7 +232,7 @@ fn three_setting_form_violated_by_singlet() {
 fn three_setting_form_from_polarization_blocks() {
     // (|HH⟩+|VV⟩)/√2: E = cos 2(α − β); analyzers 30° apart are the 60° spin case above.
     // Applied to −E (Convention::Correlated): violation by ½ at V = 1.
-    let mut rng = Rng(0x5EED_0005);
+    let mut rng = SplitMix64(0x5EED_0005);
     let angles = [(0.0, 30.0), (0.0, 60.0), (30.0, 60.0)];
     let blocks: Vec<SettingCounts> = angles
         .iter()
@@ -320,7 +273,7 @@ fn visibility_fit_recovers_parameters_and_sigmas() {
     // Poisson-sampled counts: estimates within 3σ; over 300 replicas the pulls
     // (estimate − truth)/σ have unit spread within 15% (common practice, no source).
     let (a, v, th0) = (4000.0, 0.93, 12.0);
-    let mut rng = Rng(0x5EED_0006);
+    let mut rng = SplitMix64(0x5EED_0006);
     let mut pulls_v = Vec::new();
     let mut pulls_t = Vec::new();
     for rep in 0..300 {

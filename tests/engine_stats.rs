@@ -3,30 +3,18 @@
 use tagsieve::engine::{self, accidentals, CountConfig, Criterion, Delays, ScanConfig};
 use tagsieve::ChannelTags;
 
-/// splitmix64 (Steele, Lea & Flood, OOPSLA 2014): a small, well-known generator, so the
-/// test's randomness does not come from project code.
-struct SplitMix(u64);
-impl SplitMix {
-    fn next(&mut self) -> u64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
-    }
-    fn uniform(&mut self) -> f64 {
-        ((self.next() >> 11) as f64 + 0.5) / (1u64 << 53) as f64
-    }
-}
+mod common;
+use common::SplitMix64;
+
 
 /// A Poisson process of `rate_hz` over `duration_s`, in integer ps.
-fn poisson(rng: &mut SplitMix, rate_hz: f64, duration_s: f64) -> Vec<u64> {
+fn poisson(rng: &mut SplitMix64, rate_hz: f64, duration_s: f64) -> Vec<u64> {
     let mean_gap_ps = 1e12 / rate_hz;
     let end = duration_s * 1e12;
     let mut t = 0.0;
     let mut v = Vec::new();
     loop {
-        t += -rng.uniform().ln() * mean_gap_ps;
+        t += -rng.uniform_open().ln() * mean_gap_ps;
         if t >= end {
             return v;
         }
@@ -40,7 +28,7 @@ fn accidentals_of_independent_streams_follow_the_standard_formula() {
     // resolving width (Eckart & Shonka, Phys. Rev. 53, 752 (1938), from memory). With
     // integer-ps tags the window accepts 2⌊w/2⌋+1 values of Δ, so τ = 2⌊w/2⌋+1 ps.
     let (ra, rb, t_s, w_ps) = (200e3, 300e3, 2.0, 5000u64);
-    let mut rng = SplitMix(7);
+    let mut rng = SplitMix64(7);
     let a = poisson(&mut rng, ra, t_s);
     let b = poisson(&mut rng, rb, t_s);
     let tags = vec![ChannelTags::owned(1, "a", a), ChannelTags::owned(2, "b", b)];
@@ -69,7 +57,7 @@ fn accidentals_of_independent_streams_follow_the_standard_formula() {
 fn analytic_accidentals_follow_drifting_rates() {
     // First half at low rate, second at high: one slice over the whole block overestimates
     // (⟨nA⟩⟨nB⟩ ≠ ⟨nA·nB⟩); slices of 0.1 s follow the drift and agree with the off-peak mean.
-    let mut rng = SplitMix(11);
+    let mut rng = SplitMix64(11);
     let mut a = poisson(&mut rng, 50e3, 1.0);
     a.extend(poisson(&mut rng, 450e3, 1.0).into_iter().map(|t| t + 1_000_000_000_000));
     let mut b = poisson(&mut rng, 50e3, 1.0);
@@ -92,13 +80,13 @@ fn analytic_accidentals_follow_drifting_rates() {
 
 #[test]
 fn results_are_identical_for_1_2_and_16_threads() {
-    let mut rng = SplitMix(3);
+    let mut rng = SplitMix64(3);
     // Correlated pairs plus background, long enough for many parallel chunks.
     let mut a = poisson(&mut rng, 400e3, 1.0);
     let mut b = Vec::new();
     for &t in &a {
-        if rng.uniform() < 0.3 {
-            b.push(t + 41_250 + rng.next() % 200);
+        if rng.uniform_open() < 0.3 {
+            b.push(t + 41_250 + rng.next_u64() % 200);
         }
     }
     b.extend(poisson(&mut rng, 300e3, 1.0));

@@ -8,14 +8,8 @@ use tagsieve::read::channel_array::write_channel_array;
 /// Tags from a small integer PRNG (splitmix64) with deliberate duplicates, steps
 /// backwards, a lone event and values near the 2^62 ps limit.
 fn channel(seed: u64, n: usize) -> Vec<u64> {
-    let mut s = seed;
-    let mut next = move || {
-        s = s.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = s;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
-    };
+    let mut rng = common::SplitMix64(seed);
+    let mut next = move || rng.next_u64();
     let mut t = next() % 1_000_000;
     (0..n)
         .map(|_| {

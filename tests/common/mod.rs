@@ -24,3 +24,57 @@ pub fn python() -> Command {
     assert!(p.exists(), "no Python with NumPy/h5py at {}: run tools/setup.sh first", p.display());
     Command::new(p)
 }
+
+/// SplitMix64 (Steele, Lea, Flood, OOPSLA 2014): a small, well-known generator, so the
+/// tests' randomness does not come from project code.
+pub struct SplitMix64(pub u64);
+
+impl SplitMix64 {
+    pub fn next_u64(&mut self) -> u64 {
+        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        z ^ (z >> 31)
+    }
+    /// Uniform in (0, 1): never 0, so its logarithm is finite.
+    pub fn uniform_open(&mut self) -> f64 {
+        ((self.next_u64() >> 11) as f64 + 0.5) / (1u64 << 53) as f64
+    }
+    /// Uniform in [0, 1).
+    pub fn uniform(&mut self) -> f64 {
+        (self.next_u64() >> 11) as f64 / (1u64 << 53) as f64
+    }
+    /// Poisson(λ): Knuth's product method on pieces of λ ≤ 200 (a sum of independent
+    /// Poisson variables is Poisson), so e^{−λ} never underflows.
+    pub fn poisson(&mut self, lambda: f64) -> u64 {
+        if lambda > 200.0 {
+            return self.poisson(lambda / 2.0) + self.poisson(lambda / 2.0);
+        }
+        let limit = (-lambda).exp();
+        let (mut k, mut p) = (0u64, self.uniform());
+        while p > limit {
+            k += 1;
+            p *= self.uniform();
+        }
+        k
+    }
+    /// Multinomial draw of `n` events over four cells with probabilities `p`.
+    pub fn multinomial4(&mut self, n: u64, p: [f64; 4]) -> [u64; 4] {
+        let mut out = [0u64; 4];
+        for _ in 0..n {
+            let u = self.uniform();
+            let mut acc = 0.0;
+            let mut cell = 3;
+            for (i, pi) in p.iter().enumerate() {
+                acc += pi;
+                if u < acc {
+                    cell = i;
+                    break;
+                }
+            }
+            out[cell] += 1;
+        }
+        out
+    }
+}
