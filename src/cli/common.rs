@@ -75,8 +75,8 @@ pub struct AccidentalArgs {
     /// centred ±2 µs away (±(2 µs + k·W), k = 0…4, W = 2⌊w/2⌋+1 ps).
     #[arg(long, value_delimiter = ',', allow_hyphen_values = true, value_name = "PS")]
     pub acc_offsets_ps: Vec<i64>,
-    /// Count no off-peak windows: no measured accidentals (reported as NaN), only the
-    /// analytic estimate; saves about a third of the counting time.
+    /// Count no off-peak windows: no measured accidentals (NaN in tables, null in JSON),
+    /// only the analytic estimate; a count then takes about half as long.
     #[arg(long, conflicts_with = "acc_offsets_ps")]
     pub no_offpeak: bool,
     /// Time-slice length for the analytic accidentals, s (rates may drift between slices).

@@ -104,12 +104,12 @@ fn print_sweep(block: &BlockTables, g: &Global) {
         for r in &s.rows {
             let mark = if r.window_ps == s.recommended_window_ps { " <" } else { "" };
             println!(
-                "  {:>10} {:>12} {:>12} {:>12} {:>6.1} {:>21} {:>8.1} {:>8.1}{mark}",
+                "  {:>10} {:>12} {:>12} {:>12} {:>6} {:>21} {:>8.1} {:>8.1}{mark}",
                 common::ps(r.window_ps as f64),
                 r.coincidences,
                 common::value(r.acc_analytic.value),
                 common::value(r.acc_measured.value),
-                r.acc_agreement_sigma.abs(),
+                if r.acc_agreement_sigma.is_nan() { "—".to_string() } else { format!("{:.1}", r.acc_agreement_sigma.abs()) },
                 common::estimate(r.net.value, r.net.sigma),
                 r.net.value / r.net.sigma,
                 r.car
