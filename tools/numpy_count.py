@@ -58,10 +58,11 @@ def count(a, b, delta_ps, window_ps, chunk):
 def offpeak(a, b, delta_ps, window_ps, offsets_ps, chunk):
     """Pairs in each off-peak window, one searchsorted per distinct window edge."""
     half = window_ps // 2
-    # Edges as (value, side): window k is [c − half, c + half]; side by side windows
-    # (c' = c + 2·half + 1) share the edge c + half + 1 ("left") = c + half ("right").
+    # Window k holds Δ in [c − half, c + half]: its count is #(b < x + c + half + 1) −
+    # #(b < x + c − half), both searches side="left". Side by side windows
+    # (c' = c + 2·half + 1) share an edge, so five windows need six searches.
     lows = [o - half for o in offsets_ps]
-    highs = [o + half + 1 for o in offsets_ps]      # upper bound "right" of o + half
+    highs = [o + half + 1 for o in offsets_ps]
     edges = sorted(set(lows) | set(highs))
     index = {e: i for i, e in enumerate(edges)}
     sums = np.zeros(len(edges), dtype=np.int64)
