@@ -18,6 +18,12 @@ pub enum Error {
         /// A likely fix, shown after the message ("records look byte-swapped: try ...").
         hint: Option<String>,
     },
+    /// Timestamps of a channel handed to the engine unchecked
+    /// ([`crate::ChannelTags::order_checked`] false) that go backwards or pass 2^62 ps.
+    /// The pipeline replaces it with the reader's located error
+    /// ([`crate::read::locate_disorder`]).
+    #[error("channel {channel}: timestamps go backwards or reach 2^62 ps; expected ascending timestamps below 2^62 ps")]
+    Unordered { channel: u32 },
     /// A bad command-line value, layout or manifest entry (not file data).
     #[error("{0}")]
     Usage(String),
@@ -45,7 +51,7 @@ impl Error {
     /// Exit code: 2 for bad input or usage, 1 for runtime failures, 130 for interruption.
     pub fn exit_code(&self) -> i32 {
         match self {
-            Error::BadInput { .. } | Error::Usage(_) | Error::Config { .. } | Error::OutputExists(_) => 2,
+            Error::BadInput { .. } | Error::Unordered { .. } | Error::Usage(_) | Error::Config { .. } | Error::OutputExists(_) => 2,
             Error::Io { source, .. } => match source.kind() {
                 std::io::ErrorKind::NotFound | std::io::ErrorKind::PermissionDenied => 2,
                 std::io::ErrorKind::IsADirectory | std::io::ErrorKind::InvalidInput => 2,

@@ -82,8 +82,8 @@ pub fn count_sources(label: &str, sources: &[Box<dyn TagSource>], cfg: &CountCon
     let out = if mode.streams(sources)? {
         count::count_stream(label, chunks_with_progress(sources[0].as_ref(), &progress)?, cfg)
     } else {
-        let tags = read::all_channels(sources)?;
-        engine::count_block(label, &tags, cfg)
+        let tags = read::all_channels_order_deferred(sources)?;
+        read::locate_disorder(engine::count_block(label, &tags, cfg), sources)
     };
     progress.finish();
     check_unchanged(sources)?;
@@ -105,8 +105,8 @@ pub fn sweep_sources(
         let (span, channels, sweeps) = sweep::sweep_stream(chunks_with_progress(sources[0].as_ref(), &progress)?, cfg, windows_ps, criterion)?;
         streamed_block(label, span, &channels, &cfg.delays, |b| b.sweeps = sweeps)
     } else {
-        let tags = read::all_channels(sources)?;
-        let sweeps = engine::sweep_block(&tags, cfg, windows_ps, criterion)?;
+        let tags = read::all_channels_order_deferred(sources)?;
+        let sweeps = read::locate_disorder(engine::sweep_block(&tags, cfg, windows_ps, criterion), sources)?;
         summary_block(label, &tags, &cfg.delays, |b| b.sweeps = sweeps)
     };
     progress.finish();
@@ -121,8 +121,8 @@ pub fn scan_sources(label: &str, sources: &[Box<dyn TagSource>], cfg: &ScanConfi
         let (span, channels, scans) = scan::scan_stream(chunks_with_progress(sources[0].as_ref(), &progress)?, cfg)?;
         streamed_block(label, span, &channels, &cfg.delays, |b| b.scans = scans)
     } else {
-        let tags = read::all_channels(sources)?;
-        let scans = engine::scan_block(&tags, cfg)?;
+        let tags = read::all_channels_order_deferred(sources)?;
+        let scans = read::locate_disorder(engine::scan_block(&tags, cfg), sources)?;
         summary_block(label, &tags, &cfg.delays, |b| b.scans = scans)
     };
     progress.finish();

@@ -16,14 +16,24 @@ pub struct ChannelTags<'a> {
     /// Human name (e.g. `larch_plus`); empty when the format carries none.
     pub name: String,
     pub times_ps: Cow<'a, [u64]>,
+    /// Whether `times_ps` is known to be ascending and below [`crate::read::MAX_PS`]. The
+    /// readers check that as they open a file, except on the whole-file path of `count`,
+    /// `sweep` and `scan`, where the check is left to the engine's first pass over the
+    /// channel ([`crate::engine::parallel`]) so a large file is read once, not twice.
+    pub order_checked: bool,
 }
 
 impl<'a> ChannelTags<'a> {
     pub fn owned(channel: Channel, name: impl Into<String>, times_ps: Vec<u64>) -> ChannelTags<'static> {
-        ChannelTags { channel, name: name.into(), times_ps: Cow::Owned(times_ps) }
+        ChannelTags { channel, name: name.into(), times_ps: Cow::Owned(times_ps), order_checked: true }
     }
     pub fn borrowed(channel: Channel, name: impl Into<String>, times_ps: &'a [u64]) -> Self {
-        ChannelTags { channel, name: name.into(), times_ps: Cow::Borrowed(times_ps) }
+        ChannelTags { channel, name: name.into(), times_ps: Cow::Borrowed(times_ps), order_checked: true }
+    }
+    /// The same tags, marked as not yet checked for order (the engine checks them).
+    pub fn order_unchecked(mut self) -> Self {
+        self.order_checked = false;
+        self
     }
     pub fn len(&self) -> usize {
         self.times_ps.len()

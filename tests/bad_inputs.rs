@@ -108,6 +108,37 @@ fn time_going_backwards_in_an_array() {
     expect(&out, 2, &["b.u64", "record 3 (byte offset 24)", "timestamp 25 ps after 30 ps", "≥ 30 ps"]);
 }
 
+/// The whole-file `count`, `scan` and `sweep` check a channel's order during their first
+/// pass over it (src/engine/parallel.rs); the message must still be the reader's, and the
+/// descent must be found wherever it lies: in channel B far from every A event, or in a
+/// channel that is in no pair.
+#[test]
+fn time_going_backwards_found_by_every_whole_file_pass() {
+    let d = Dir::new();
+    d.good_array("g.u64"); // 1000 ps … 100 000 ps
+    // B reaches far past A's last event (100 µs); its descent sits at 5 ms, where no A
+    // event's window reaches.
+    let mut far: Vec<u64> = (0..100).map(|i| 1_000 + i * 1_000).collect();
+    far.extend((0..50).map(|i| 5_000_000 + i * 10));
+    far[120] = far[119] - 3;
+    d.file("far.u64", &u64s_le(&far));
+    let (t, t0) = (far[120], far[119]);
+    let found = format!("timestamp {t} ps after {t0} ps");
+    for cmd in [
+        &["count", "-w", "1000", "1=g.u64", "2=far.u64"][..],
+        &["scan", "--span-ps", "2000", "--bin-ps", "100", "1=g.u64", "2=far.u64"][..],
+        &["sweep", "--windows-ps", "500,1000", "1=g.u64", "2=far.u64"][..],
+    ] {
+        let out = run(d.path(), cmd);
+        expect(&out, 2, &["far.u64", "record 120 (byte offset 960)", &found]);
+    }
+    // Channel 3 is in no pair counted; its descent is still found.
+    d.file("b.u64", &u64s_le(&[10, 20, 30, 25, 40]));
+    d.good_array("h.u64");
+    let out = run(d.path(), &["count", "-w", "1000", "--pairs", "1:2", "1=g.u64", "2=h.u64", "3=b.u64"]);
+    expect(&out, 2, &["b.u64", "record 3 (byte offset 24)", "timestamp 25 ps after 30 ps"]);
+}
+
 #[test]
 fn byte_swapped_array_gets_the_hint() {
     let d = Dir::new();

@@ -2,6 +2,7 @@
 //! counts, both accidental estimates, net counts and CAR.
 
 use super::accidentals::{self, SliceProducts};
+use super::parallel::{self, Disorder, Unchecked};
 use super::stream::{ChannelSummary, PairResult, PairTask, Streamer};
 use super::delays::Delays;
 use super::kernels::WindowCount;
@@ -80,14 +81,37 @@ pub fn count_block(label: &str, tags: &[ChannelTags<'_>], cfg: &CountConfig) -> 
     check_count(cfg)?;
     let pairs = resolve_pairs(tags, &cfg.pairs)?;
     let span = block_span(tags).ok_or_else(|| Error::Usage(format!("block {label}: every channel is empty")))?;
-    let task = count_task(cfg);
-    let mut results = Vec::with_capacity(pairs.len());
-    for &(ca, cb) in &pairs {
-        let delta = cfg.delays.relative(ca, cb);
-        rule::check_shift(delta, "relative delay")?;
-        results.push(((ca, cb), delta, task.run_whole(channel(tags, ca)?, channel(tags, cb)?, delta)));
-    }
+    let results = run_pairs(tags, &pairs, &cfg.delays, &count_task(cfg))?;
     Ok(assemble_count(label, span, &summaries(tags, span, cfg.slice_ps), &results, cfg))
+}
+
+/// Run `task` over every pair of whole-file tags. Channels whose order is not yet checked
+/// ([`ChannelTags::order_checked`] false) are checked during the first pass that reads
+/// them, and those in no pair on their own, all before anything else reads them; a
+/// channel that goes backwards gives [`Error::Unordered`].
+pub fn run_pairs(tags: &[ChannelTags<'_>], pairs: &[(Channel, Channel)], delays: &Delays, task: &PairTask) -> Result<Vec<PairOutcome>> {
+    let mut checked: std::collections::BTreeMap<Channel, bool> = tags.iter().map(|t| (t.channel, t.order_checked)).collect();
+    let mut results = Vec::with_capacity(pairs.len());
+    for &(ca, cb) in pairs {
+        let delta = delays.relative(ca, cb);
+        rule::check_shift(delta, "relative delay")?;
+        let unchecked = Unchecked { a: !checked.get(&ca).copied().unwrap_or(true), b: !checked.get(&cb).copied().unwrap_or(true) };
+        let r = task.run_whole_checked(channel(tags, ca)?, channel(tags, cb)?, delta, unchecked).map_err(|d| Error::Unordered {
+            channel: match d {
+                Disorder::A => ca,
+                Disorder::B => cb,
+            },
+        })?;
+        checked.insert(ca, true);
+        checked.insert(cb, true);
+        results.push(((ca, cb), delta, r));
+    }
+    for t in tags.iter().filter(|t| !checked.get(&t.channel).copied().unwrap_or(true)) {
+        if !parallel::ascending(&t.times_ps) {
+            return Err(Error::Unordered { channel: t.channel });
+        }
+    }
+    Ok(results)
 }
 
 /// Count one block from chunks in time order (bounded-memory path); equal to

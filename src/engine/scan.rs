@@ -1,7 +1,7 @@
 //! Delay scan: the histogram of Δ per pair, its peak (delay estimate with σ, FWHM, height,
 //! background), and delays proposed for every channel relative to a reference.
 
-use super::count::{channel, finish_stream, resolve_pairs, PairOutcome};
+use super::count::{finish_stream, resolve_pairs, PairOutcome};
 use super::delays::Delays;
 use super::rule;
 use super::stream::{ChannelSummary, PairResult, PairTask, Streamer};
@@ -25,14 +25,7 @@ pub const FWHM_PER_SIGMA: f64 = 2.354_820_045_030_949;
 pub fn scan_block(tags: &[ChannelTags<'_>], cfg: &ScanConfig) -> Result<Vec<ScanResult>> {
     let task = check_scan(cfg)?;
     let pairs = resolve_pairs(tags, &cfg.pairs)?;
-    pairs
-        .iter()
-        .map(|&(ca, cb)| {
-            let delta = cfg.delays.relative(ca, cb);
-            rule::check_shift(delta, "relative delay")?;
-            Ok(scan_result(&((ca, cb), delta, task.run_whole(channel(tags, ca)?, channel(tags, cb)?, delta)), cfg))
-        })
-        .collect()
+    Ok(super::count::run_pairs(tags, &pairs, &cfg.delays, &task)?.iter().map(|r| scan_result(r, cfg)).collect())
 }
 
 /// Scan from chunks in time order (bounded memory); equal to [`scan_block`].

@@ -4,7 +4,7 @@
 //! older is finished and dropped. Results equal the whole-file path bit for bit.
 
 use super::kernels::WindowCount;
-use super::parallel;
+use super::parallel::{self, Disorder, Unchecked};
 use crate::{Channel, ChannelTags, Error, Result};
 use std::collections::BTreeMap;
 
@@ -54,23 +54,39 @@ impl PairTask {
 
     /// Run the whole-file kernels on finished A events `a` against `b`, adding to `acc`.
     fn run(&self, a: &[u64], b: &[u64], delta: i64, acc: &mut PairResult) {
+        match self.run_checked(a, b, delta, Unchecked::default(), acc) {
+            Ok(()) => {}
+            Err(_) => unreachable!("a pass without order checks cannot find disorder"),
+        }
+    }
+
+    /// [`PairTask::run`], checking on the way the order of the inputs marked in `unchecked`
+    /// (in the first of a profile's passes; the later ones read checked data).
+    fn run_checked(&self, a: &[u64], b: &[u64], delta: i64, unchecked: Unchecked, acc: &mut PairResult) -> Result<(), Disorder> {
+        let chunk = parallel::CHUNK_EVENTS;
         match (self, acc) {
             (PairTask::Count { centres_ps, half_ps }, PairResult::Count(v)) => {
                 let shifts: Vec<i64> = centres_ps.iter().map(|c| delta + c).collect();
-                for (slot, c) in v.iter_mut().zip(parallel::count_windows(a, b, &shifts, *half_ps)) {
+                for (slot, c) in v.iter_mut().zip(parallel::count_windows_checked(a, b, &shifts, *half_ps, unchecked, chunk)?) {
                     *slot = *slot + c;
                 }
             }
             (PairTask::Histogram { span_ps, bin_ps }, PairResult::Histogram(v)) => {
-                add(v, &parallel::histogram(a, b, delta, *span_ps, *bin_ps));
+                add(v, &parallel::histogram_checked(a, b, delta, *span_ps, *bin_ps, unchecked, chunk)?);
             }
             (PairTask::Profile { centres_ps, max_half_ps }, PairResult::Profile(vs)) => {
+                let mut unchecked = unchecked;
                 for (c, v) in centres_ps.iter().zip(vs.iter_mut()) {
-                    add(v, &parallel::profile(a, b, delta + c, *max_half_ps));
+                    add(v, &parallel::profile_checked(a, b, delta + c, *max_half_ps, unchecked, chunk)?);
+                    unchecked = Unchecked::default();
+                }
+                if centres_ps.is_empty() {
+                    check_alone(a, b, unchecked)?;
                 }
             }
             _ => unreachable!("result kind always matches its task"),
         }
+        Ok(())
     }
 
     /// The whole-file result in one call (the reference the streaming path must equal).
@@ -79,6 +95,25 @@ impl PairTask {
         self.run(a, b, delta, &mut acc);
         acc
     }
+
+    /// [`PairTask::run_whole`], checking on the way the order of the inputs marked in
+    /// `unchecked` (see [`parallel`]).
+    pub fn run_whole_checked(&self, a: &[u64], b: &[u64], delta: i64, unchecked: Unchecked) -> Result<PairResult, Disorder> {
+        let mut acc = self.empty_result();
+        self.run_checked(a, b, delta, unchecked, &mut acc)?;
+        Ok(acc)
+    }
+}
+
+/// The order check alone, for a pass that reads nothing.
+fn check_alone(a: &[u64], b: &[u64], unchecked: Unchecked) -> Result<(), Disorder> {
+    if unchecked.a && !parallel::ascending(a) {
+        return Err(Disorder::A);
+    }
+    if unchecked.b && !parallel::ascending(b) {
+        return Err(Disorder::B);
+    }
+    Ok(())
 }
 
 fn add(x: &mut [u64], y: &[u64]) {

@@ -2,7 +2,7 @@
 //! profile pass per window position, and a recommended window by a documented criterion.
 
 use super::count::{
-    block_span, channel, check_offsets, coincidence_row, finish_stream, pair_products, resolve_pairs, summaries, CountConfig,
+    block_span, check_offsets, coincidence_row, finish_stream, pair_products, resolve_pairs, summaries, CountConfig,
     PairOutcome,
 };
 use super::kernels::WindowCount;
@@ -50,13 +50,7 @@ pub fn sweep_block(tags: &[ChannelTags<'_>], base: &CountConfig, windows_ps: &[u
     let windows = check_windows(windows_ps, base)?;
     let span = block_span(tags).ok_or_else(|| Error::Usage("sweep: every channel is empty".into()))?;
     let pairs = resolve_pairs(tags, &base.pairs)?;
-    let task = profile_task(&windows, base);
-    let mut results = Vec::with_capacity(pairs.len());
-    for &(ca, cb) in &pairs {
-        let delta = base.delays.relative(ca, cb);
-        rule::check_shift(delta, "relative delay")?;
-        results.push(((ca, cb), delta, task.run_whole(channel(tags, ca)?, channel(tags, cb)?, delta)));
-    }
+    let results = super::count::run_pairs(tags, &pairs, &base.delays, &profile_task(&windows, base))?;
     let channels = summaries(tags, span, base.slice_ps);
     Ok(results.iter().map(|r| sweep_table(r, &channels, span, base, &windows, criterion)).collect())
 }

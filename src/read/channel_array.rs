@@ -60,6 +60,12 @@ impl TagSource for ChannelArray {
     fn channels(&self) -> Result<Vec<ChannelTags<'_>>> {
         sections::channels(&self.map, std::slice::from_ref(&self.section), self.lenient)
     }
+    fn channels_order_deferred(&self) -> Result<Vec<ChannelTags<'_>>> {
+        if self.lenient {
+            return self.channels();
+        }
+        sections::channels_unchecked(&self.map, std::slice::from_ref(&self.section))
+    }
     fn chunks(&self, events_per_chunk: usize) -> Result<Box<dyn Iterator<Item = Result<Vec<ChannelTags<'static>>>> + Send + '_>> {
         Ok(Box::new(SectionChunks::new(&self.map, std::slice::from_ref(&self.section), events_per_chunk, self.lenient)))
     }

@@ -175,6 +175,12 @@ impl TagSource for Container {
     fn channels(&self) -> Result<Vec<ChannelTags<'_>>> {
         sections::channels(&self.map, &self.sections, self.lenient)
     }
+    fn channels_order_deferred(&self) -> Result<Vec<ChannelTags<'_>>> {
+        if self.lenient {
+            return self.channels();
+        }
+        sections::channels_unchecked(&self.map, &self.sections)
+    }
     fn chunks(&self, events_per_chunk: usize) -> Result<Box<dyn Iterator<Item = Result<Vec<ChannelTags<'static>>>> + Send + '_>> {
         Ok(Box::new(SectionChunks::new(&self.map, &self.sections, events_per_chunk, self.lenient)))
     }

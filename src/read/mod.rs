@@ -55,6 +55,13 @@ pub trait TagSource: Send + Sync {
     /// All channels of this file, in integer ps, sorted ascending. Zero-copy where the
     /// format allows; interleaved records are demultiplexed into memory.
     fn channels(&self) -> Result<Vec<ChannelTags<'_>>>;
+    /// [`TagSource::channels`], where the format allows, without the pass that checks the
+    /// timestamps ascend: the tags come marked [`ChannelTags::order_checked`] false and the
+    /// engine checks them during its own first pass. Formats that must read every record
+    /// anyway (interleaved records) check as they go and return checked tags.
+    fn channels_order_deferred(&self) -> Result<Vec<ChannelTags<'_>>> {
+        self.channels()
+    }
     /// Bounded-memory view: consecutive chunks of about `events_per_chunk` events,
     /// demultiplexed per channel, in time order overall. Every event appears in exactly
     /// one chunk; within a channel, chunk k's events are all ≤ chunk k+1's.
@@ -133,17 +140,43 @@ fn claim_channel(owner: &mut BTreeMap<Channel, PathBuf>, ch: Channel, path: &Pat
 
 /// Convenience: all channels of a set of opened inputs, checking channel numbers are unique.
 pub fn all_channels<'a>(sources: &'a [Box<dyn TagSource>]) -> Result<Vec<ChannelTags<'a>>> {
+    gather(sources, |s| s.channels())
+}
+
+/// [`all_channels`] with the order check left to the engine
+/// ([`TagSource::channels_order_deferred`]). If the engine then reports
+/// [`Error::Unordered`], [`locate_disorder`] turns it into the reader's own error.
+pub fn all_channels_order_deferred<'a>(sources: &'a [Box<dyn TagSource>]) -> Result<Vec<ChannelTags<'a>>> {
+    gather(sources, |s| s.channels_order_deferred())
+}
+
+fn gather<'a>(sources: &'a [Box<dyn TagSource>], read: impl Fn(&'a dyn TagSource) -> Result<Vec<ChannelTags<'a>>>) -> Result<Vec<ChannelTags<'a>>> {
     let mut owner = BTreeMap::new();
     let mut out = Vec::new();
     for s in sources {
         let path = s.file().path;
-        for c in s.channels()? {
+        for c in read(s.as_ref())? {
             claim_channel(&mut owner, c.channel, &path)?;
             out.push(c);
         }
         s.check_unchanged()?;
     }
     Ok(out)
+}
+
+/// The result of an engine pass over [`all_channels_order_deferred`] tags: an
+/// [`Error::Unordered`] is replaced by the strict reader's error for the same files
+/// (naming the file, the record, its byte offset, what was found and what was expected).
+pub fn locate_disorder<T>(r: Result<T>, sources: &[Box<dyn TagSource>]) -> Result<T> {
+    match r {
+        Err(e @ Error::Unordered { .. }) => {
+            for s in sources {
+                s.channels()?;
+            }
+            Err(e)
+        }
+        r => r,
+    }
 }
 
 /// Whether `path` starts with the container's magic bytes.

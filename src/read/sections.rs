@@ -117,9 +117,28 @@ pub fn channels<'a>(map: &'a Mapping, sections: &[Section], lenient: bool) -> Re
         .map(|s| {
             let times = map.u64s_le(s.offset_bytes, s.count as usize)?;
             OrderChecker::new(lenient).check(map, s.offset_bytes, &times)?;
-            Ok(ChannelTags { channel: s.channel, name: s.name.clone(), times_ps: times })
+            Ok(ChannelTags { channel: s.channel, name: s.name.clone(), times_ps: times, order_checked: true })
         })
         .collect()
+}
+
+/// All sections as zero-copy channels whose order is left for the engine to check
+/// ([`crate::ChannelTags::order_checked`] false); only their place in the file is checked.
+pub fn channels_unchecked<'a>(map: &'a Mapping, sections: &[Section]) -> Result<Vec<ChannelTags<'a>>> {
+    sections
+        .iter()
+        .map(|s| {
+            let times = map.u64s_le(s.offset_bytes, s.count as usize)?;
+            Ok(ChannelTags { channel: s.channel, name: s.name.clone(), times_ps: times, order_checked: false })
+        })
+        .collect()
+}
+
+/// Whether `w` is ascending (equal values allowed) and below [`MAX_PS`]: the strict
+/// reader's check as one yes/no, for the engine's fused pass (which, on a no, has the
+/// reader locate the failure).
+pub fn ascending_below_limit(w: &[u64]) -> bool {
+    !descends(w) && w.last().is_none_or(|&t| t < MAX_PS)
 }
 
 /// Time-aligned chunks over `sections`: each channel reads a window of at most
