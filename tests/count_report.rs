@@ -59,7 +59,8 @@ fn human_report_carries_both_accidental_estimates() {
     let r = &v["blocks"][0]["coincidences"][0];
     let text = count(dir.path(), false);
     let f = |k: &str, s: &str| r[k][s].as_f64().unwrap();
-    assert!(text.contains(&format!("coincidences  {}  (heralded A events {})", r["coincidences"], r["heralded"])), "{text}");
+    let grouped = |v: &serde_json::Value| tagsieve::units::fmt_count(v.as_u64().expect("a count"));
+    assert!(text.contains(&format!("coincidences  {}  (heralded A events {})", grouped(&r["coincidences"]), grouped(&r["heralded"]))), "{text}");
     assert!(text.contains(&format!("({} off-peak windows)", r["acc_offsets_ps"].as_array().unwrap().len())), "{text}");
     assert!(text.contains(&format!("differ by {:.1} σ", r["acc_agreement_sigma"].as_f64().unwrap().abs())), "{text}");
     for (label, key) in [("analytic ", "acc_analytic"), ("measured ", "acc_measured"), ("net           ", "net")] {

@@ -4,6 +4,7 @@ use super::common::{self, AccidentalArgs, InputArgs, OutputArgs, PairArgs};
 use super::Global;
 use tagsieve::engine::{tables::BlockTables, CountConfig};
 use tagsieve::output::{provenance::Provenance, AttrValue};
+use tagsieve::units::fmt_count;
 use tagsieve::{pipeline, read, Result};
 
 #[derive(clap::Args, Debug)]
@@ -60,7 +61,8 @@ fn provenance(args: &Args, cfg: &CountConfig, sources: &[Box<dyn read::TagSource
     super::add_inputs(p, sources)
 }
 
-/// Coincidence tables on stdout (human table or JSON).
+/// Coincidence tables on stdout (human table or JSON); counts in groups of three digits,
+/// as `inspect` prints them.
 pub fn print_counts(blocks: &[BlockTables], g: &Global) {
     if g.json {
         common::print_json(&serde_json::json!({ "blocks": blocks.iter().map(super::block_json).collect::<Vec<_>>() }));
@@ -70,11 +72,11 @@ pub fn print_counts(blocks: &[BlockTables], g: &Global) {
         println!("{}: span {}", b.label, b.span.map(|s| common::ps(s.duration_ps() as f64)).unwrap_or_else(|| "none (no events)".into()));
         println!("  {:>5} {:>12} {:>10}", "ch", "singles", "rate");
         for s in &b.singles {
-            println!("  {:>5} {:>12} {:>10}", s.channel, s.events, tagsieve::units::fmt_rate_hz(s.rate_hz));
+            println!("  {:>5} {:>12} {:>10}", s.channel, fmt_count(s.events), tagsieve::units::fmt_rate_hz(s.rate_hz));
         }
         for r in &b.coincidences {
             println!("  pair {}:{}  delay {}  window {}", r.a, r.b, common::ps(r.rel_delay_ps as f64), common::ps(r.window_ps as f64));
-            println!("    coincidences  {}  (heralded A events {})", r.coincidences, r.heralded);
+            println!("    coincidences  {}  (heralded A events {})", fmt_count(r.coincidences), fmt_count(r.heralded));
             if r.acc_offsets_ps.is_empty() {
                 println!("    accidentals   analytic {}   measured: none (no off-peak windows counted)", common::estimate(r.acc_analytic.value, r.acc_analytic.sigma));
             } else {
