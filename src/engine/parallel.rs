@@ -40,6 +40,7 @@ pub enum Disorder {
 /// last chunk), after checking s_k ≤ s_{k+1}. Those shares overlap by one element and
 /// together cover B, so every adjacent pair of A and of B is compared once; a task
 /// counts only over data it has checked, so the kernels never see unsorted input.
+#[allow(clippy::too_many_arguments)] // private driver: the two inputs, their reach and check, the chunking, and fold/merge
 fn over_chunks<R, F, M>(a: &[u64], b: &[u64], reach: (i64, i64), unchecked: Unchecked, chunk_events: usize, init: impl Fn() -> R + Sync + Send, f: F, merge: M) -> Result<R, Disorder>
 where
     R: Send,
