@@ -30,11 +30,6 @@ impl<'a> ChannelTags<'a> {
     pub fn borrowed(channel: Channel, name: impl Into<String>, times_ps: &'a [u64]) -> Self {
         ChannelTags { channel, name: name.into(), times_ps: Cow::Borrowed(times_ps), order_checked: true }
     }
-    /// The same tags, marked as not yet checked for order (the engine checks them).
-    pub fn order_unchecked(mut self) -> Self {
-        self.order_checked = false;
-        self
-    }
     pub fn len(&self) -> usize {
         self.times_ps.len()
     }
