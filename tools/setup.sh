@@ -34,11 +34,11 @@ else
 fi
 
 if [ "$want_python" = 1 ]; then
-  if ! .venv/bin/python -c 'import numpy, scipy, h5py' >/dev/null 2>&1; then
-    say "creating .venv with NumPy, SciPy and h5py (outside references for the tests)"
+  if ! .venv/bin/python -c 'import numpy, scipy, h5py, pandas' >/dev/null 2>&1; then
+    say "creating .venv with NumPy, SciPy, h5py and pandas (outside references for the tests)"
     python3 -m venv .venv
     .venv/bin/python -m pip install -q --upgrade pip
-    .venv/bin/python -m pip install -q numpy scipy h5py
+    .venv/bin/python -m pip install -q numpy scipy h5py pandas
   else
     say "Python references present in .venv (NumPy, SciPy, h5py)"
   fi
