@@ -125,11 +125,11 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
     let ab_sources = pipeline::open_block(&m.block_inputs(ab), None, opts)?;
     let coarse = ScanConfig { pairs: vec![], delays: Delays::default(), span_ps: 100_000, bin_ps: 20 };
     let coarse_block = pipeline::scan_sources("ab", &ab_sources, &coarse, PassMode::Auto, true)?;
-    let (mut delays, unreached) = scan::propose_delays(&coarse_block.scans, 1);
-    if !unreached.is_empty() {
-        return Err(Error::Usage(format!("demo: no coincidence peak reached channels {unreached:?}")));
+    let channels: Vec<_> = coarse_block.singles.iter().map(|s| s.channel).collect();
+    let delays = scan::propose_delays(&coarse_block.scans, 1, &channels);
+    if let Some((c, why)) = delays.not_found.iter().next() {
+        return Err(Error::Usage(format!("demo: the scan found no delay for channel {c}: {why}")));
     }
-    delays.reference = Some(1);
     output::atomic::write_bytes(&dir.join("delays.toml"), delays.to_toml().as_bytes(), true)?;
 
     let pairs = pipeline::role_pairs(&m)?;

@@ -76,18 +76,75 @@ fn chunks_with_progress<'a>(
     }))
 }
 
+/// Channels a block's inputs declare without reading the data; `None` when a record
+/// file's channels appear only as it is read.
+pub fn declared_channels(sources: &[Box<dyn TagSource>]) -> Option<Vec<Channel>> {
+    let mut all = Vec::new();
+    for s in sources {
+        all.extend(s.declared_channels()?);
+    }
+    all.sort_unstable();
+    Some(all)
+}
+
+/// Which delays a pass may use: a `--delay` for a channel no input has is refused, and,
+/// with `require`, once a delays file is involved every channel of the pairs (every
+/// channel when `pairs` is empty) must have a delay ([`Delays::require`]).
+/// Checked before the pass where the inputs declare their channels, else after it.
+struct DelayCheck<'a> {
+    delays: &'a Delays,
+    pairs: &'a [(Channel, Channel)],
+    require: bool,
+    done: bool,
+}
+
+impl<'a> DelayCheck<'a> {
+    fn before(sources: &[Box<dyn TagSource>], delays: &'a Delays, pairs: &'a [(Channel, Channel)], require: bool) -> Result<Self> {
+        let mut c = DelayCheck { delays, pairs, require, done: false };
+        if let Some(channels) = declared_channels(sources) {
+            c.check(&channels)?;
+        }
+        Ok(c)
+    }
+
+    fn after(self, block: &BlockTables) -> Result<()> {
+        if self.done {
+            return Ok(());
+        }
+        let channels: Vec<Channel> = block.singles.iter().map(|s| s.channel).collect();
+        let mut c = self;
+        c.check(&channels)
+    }
+
+    fn check(&mut self, channels: &[Channel]) -> Result<()> {
+        self.done = true;
+        self.delays.check_given(channels)?;
+        if !self.require {
+            return Ok(());
+        }
+        if self.pairs.is_empty() {
+            self.delays.require(channels.iter().copied())
+        } else {
+            self.delays.require(self.pairs.iter().flat_map(|&(a, b)| [a, b]))
+        }
+    }
+}
+
 /// Count one block: coincidences and accidentals at the configured window.
 pub fn count_sources(label: &str, sources: &[Box<dyn TagSource>], cfg: &CountConfig, mode: PassMode, quiet: bool) -> Result<BlockTables> {
+    let check = DelayCheck::before(sources, &cfg.delays, &cfg.pairs, true)?;
     let progress = Progress::bytes("count", total_bytes(sources), quiet);
     let out = if mode.streams(sources)? {
-        count::count_stream(label, chunks_with_progress(sources[0].as_ref(), &progress)?, cfg)
+        read::locate_disorder_streamed(count::count_stream(label, chunks_with_progress(sources[0].as_ref(), &progress)?, cfg), sources[0].as_ref())
     } else {
         let tags = read::all_channels_order_deferred(sources)?;
         read::locate_disorder(engine::count_block(label, &tags, cfg), sources)
     };
     progress.finish();
     check_unchanged(sources)?;
-    out
+    let block = out?;
+    check.after(&block)?;
+    Ok(block)
 }
 
 /// Window sweep of one block.
@@ -100,9 +157,11 @@ pub fn sweep_sources(
     mode: PassMode,
     quiet: bool,
 ) -> Result<BlockTables> {
+    let check = DelayCheck::before(sources, &cfg.delays, &cfg.pairs, true)?;
     let progress = Progress::bytes("sweep", total_bytes(sources), quiet);
     let block = if mode.streams(sources)? {
-        let (span, channels, sweeps) = sweep::sweep_stream(chunks_with_progress(sources[0].as_ref(), &progress)?, cfg, windows_ps, criterion)?;
+        let r = sweep::sweep_stream(chunks_with_progress(sources[0].as_ref(), &progress)?, cfg, windows_ps, criterion);
+        let (span, channels, sweeps) = read::locate_disorder_streamed(r, sources[0].as_ref())?;
         streamed_block(label, span, &channels, &cfg.delays, |b| b.sweeps = sweeps)
     } else {
         let tags = read::all_channels_order_deferred(sources)?;
@@ -111,14 +170,21 @@ pub fn sweep_sources(
     };
     progress.finish();
     check_unchanged(sources)?;
+    check.after(&block)?;
     Ok(block)
 }
 
 /// Delay scan of one block.
+///
+/// A scan looks for delays, so a channel its delays file lacks starts from 0 here (the
+/// histogram's ±span is the search range); a `--delay` for a channel no input has is
+/// still refused.
 pub fn scan_sources(label: &str, sources: &[Box<dyn TagSource>], cfg: &ScanConfig, mode: PassMode, quiet: bool) -> Result<BlockTables> {
+    let check = DelayCheck::before(sources, &cfg.delays, &cfg.pairs, false)?;
     let progress = Progress::bytes("scan", total_bytes(sources), quiet);
     let block = if mode.streams(sources)? {
-        let (span, channels, scans) = scan::scan_stream(chunks_with_progress(sources[0].as_ref(), &progress)?, cfg)?;
+        let r = scan::scan_stream(chunks_with_progress(sources[0].as_ref(), &progress)?, cfg);
+        let (span, channels, scans) = read::locate_disorder_streamed(r, sources[0].as_ref())?;
         streamed_block(label, span, &channels, &cfg.delays, |b| b.scans = scans)
     } else {
         let tags = read::all_channels_order_deferred(sources)?;
@@ -127,6 +193,7 @@ pub fn scan_sources(label: &str, sources: &[Box<dyn TagSource>], cfg: &ScanConfi
     };
     progress.finish();
     check_unchanged(sources)?;
+    check.after(&block)?;
     Ok(block)
 }
 
@@ -168,16 +235,17 @@ pub fn check_unchanged(sources: &[Box<dyn TagSource>]) -> Result<()> {
 }
 
 /// Delays for a run: the manifest's per-channel `delay_ps`, then its delays file, then
-/// `overrides` (later wins).
+/// `overrides` (a delays file and flags from the command line; later wins).
 pub fn manifest_delays(m: &Manifest, overrides: &Delays) -> Result<Delays> {
     let mut d = Delays::default();
-    d.by_channel.extend(m.channel_delays_ps());
-    if let Some(p) = m.delays_file_path() {
-        let f = Delays::load(&p)?;
-        d.by_channel.extend(f.by_channel);
-        d.reference = f.reference;
+    for (c, v) in m.channel_delays_ps() {
+        d.by_channel.insert(c, v);
+        d.obtained.insert(c, "manifest delay_ps".into());
     }
-    d.by_channel.extend(overrides.by_channel.iter().map(|(k, v)| (*k, *v)));
+    if let Some(p) = m.delays_file_path() {
+        d.overlay(&Delays::load(&p)?);
+    }
+    d.overlay(overrides);
     Ok(d)
 }
 

@@ -24,7 +24,7 @@ pub struct Args {
     #[arg(value_name = "RUN.toml")]
     pub manifest: PathBuf,
     /// Coincidence window w, ps (2·|Δ| ≤ w); overrides the manifest's window_ps.
-    #[arg(long, short = 'w', value_name = "PS")]
+    #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long, short = 'w', value_name = "PS")]
     pub window_ps: Option<u64>,
     /// Delay of a channel in ps, `CH=PS`; overrides the manifest (repeatable).
     #[arg(long = "delay", value_name = "CH=PS")]

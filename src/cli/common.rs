@@ -56,15 +56,23 @@ impl PairArgs {
     }
 }
 
+/// `A:B` pairs; a channel paired with itself, or a pair given twice (in either order),
+/// is refused.
 pub fn parse_pairs(specs: &[String]) -> Result<Vec<(Channel, Channel)>> {
-    specs
-        .iter()
-        .map(|s| {
-            let (a, b) = s.split_once(':').ok_or_else(|| Error::Usage(format!("--pairs {s}: expected A:B, e.g. 1:3")))?;
-            let p = |x: &str| x.trim().parse::<Channel>().map_err(|_| Error::Usage(format!("--pairs {s}: '{x}' is not a channel number")));
-            Ok((p(a)?, p(b)?))
-        })
-        .collect()
+    let mut pairs: Vec<(Channel, Channel)> = Vec::with_capacity(specs.len());
+    for s in specs {
+        let (a, b) = s.split_once(':').ok_or_else(|| Error::Usage(format!("--pairs {s}: expected A:B, e.g. 1:3")))?;
+        let p = |x: &str| x.trim().parse::<Channel>().map_err(|_| Error::Usage(format!("--pairs {s}: '{x}' is not a channel number")));
+        let (a, b) = (p(a)?, p(b)?);
+        if a == b {
+            return Err(Error::Usage(format!("--pairs {s}: a channel cannot be paired with itself; expected two different channels")));
+        }
+        if let Some(&(x, y)) = pairs.iter().find(|&&(x, y)| (x, y) == (a, b) || (x, y) == (b, a)) {
+            return Err(Error::Usage(format!("--pairs {s}: the pair {x}:{y} is given twice; expected each pair once")));
+        }
+        pairs.push((a, b));
+    }
+    Ok(pairs)
 }
 
 /// Accidental-estimate settings.
@@ -112,7 +120,7 @@ pub struct OutputArgs {
     /// Table format.
     #[arg(long, value_enum, default_value_t = tagsieve::output::Format::Hdf5)]
     pub format: tagsieve::output::Format,
-    /// Replace an existing output file.
+    /// Replace existing output files (the tables, and a delays file written by scan).
     #[arg(long)]
     pub force: bool,
 }
@@ -125,19 +133,33 @@ impl OutputArgs {
 
     /// Fail early (before any long pass) on an output that cannot be written.
     pub fn precheck(&self) -> Result<()> {
-        if let Some(p) = &self.output {
-            if p.as_os_str() == "-" {
-                return Ok(());
-            }
-            let dir = p.parent().filter(|d| !d.as_os_str().is_empty()).unwrap_or(Path::new("."));
-            if !dir.is_dir() {
-                return Err(Error::Usage(format!("{}: output directory {} does not exist", p.display(), dir.display())));
-            }
-            if p.exists() && !self.force {
-                return Err(Error::OutputExists(p.clone()));
-            }
+        match &self.output {
+            Some(p) if p.as_os_str() != "-" => precheck_output(p, self.force),
+            _ => Ok(()),
         }
-        Ok(())
+    }
+}
+
+/// Fail early on an output file that cannot be written: a missing directory, or an
+/// existing file without `--force`.
+pub fn precheck_output(p: &Path, force: bool) -> Result<()> {
+    let dir = p.parent().filter(|d| !d.as_os_str().is_empty()).unwrap_or(Path::new("."));
+    if !dir.is_dir() {
+        return Err(Error::Usage(format!("{}: output directory {} does not exist", p.display(), dir.display())));
+    }
+    if p.exists() && !force {
+        return Err(Error::OutputExists(p.to_path_buf()));
+    }
+    Ok(())
+}
+
+/// A ps value that must be > 0 (windows, bins, ranges), for clap: zero, a negative value
+/// (`-w -5` as well as `-w=-5`) and a non-number each get one clear message.
+pub fn positive_ps(s: &str) -> std::result::Result<u64, String> {
+    match s.trim().parse::<i128>() {
+        Ok(v) if v > 0 && v <= u64::MAX as i128 => Ok(v as u64),
+        Ok(v) => Err(format!("{v} ps is not allowed here; expected a whole number of ps > 0, e.g. 500")),
+        Err(_) => Err(format!("'{s}' is not a whole number of ps; expected an integer > 0, e.g. 500")),
     }
 }
 

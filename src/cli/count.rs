@@ -14,7 +14,7 @@ pub struct Args {
     #[command(flatten)]
     pub pairs: PairArgs,
     /// Coincidence window w, ps: a pair coincides when 2·|Δ| ≤ w.
-    #[arg(long, short = 'w', value_name = "PS")]
+    #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long, short = 'w', value_name = "PS")]
     pub window_ps: u64,
     #[command(flatten)]
     pub acc: AccidentalArgs,

@@ -5,7 +5,7 @@ use super::Global;
 use std::path::PathBuf;
 use tagsieve::engine::{self, scan, tables::BlockTables, ScanConfig};
 use tagsieve::output::{provenance::Provenance, AttrValue};
-use tagsieve::{pipeline, Channel, Result};
+use tagsieve::{pipeline, Channel, Error, Result};
 
 #[derive(clap::Args, Debug)]
 pub struct Args {
@@ -14,15 +14,20 @@ pub struct Args {
     #[command(flatten)]
     pub pairs: PairArgs,
     /// Half-range of the histogram, ps: Δ from −span to +span.
-    #[arg(long, default_value_t = 100_000, value_name = "PS")]
+    #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long, default_value_t = 100_000, value_name = "PS")]
     pub span_ps: u64,
     /// Bin width, ps.
-    #[arg(long, default_value_t = 20, value_name = "PS")]
+    #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long, default_value_t = 20, value_name = "PS")]
     pub bin_ps: u64,
-    /// Propose every other channel's delay relative to this channel and write them.
+    /// Propose every other channel's delay relative to this channel and write them to
+    /// --delays-out. A channel gets a delay only through a pair whose histogram has a peak:
+    /// its highest bin stands ≥ 5 σ (Poisson σ of the median bin, the background) and
+    /// ≥ 10 counts above the background, within ±span. Channels without one are listed
+    /// with the reason and left out of the file; a --delay given for such a channel is
+    /// written instead.
     #[arg(long, value_name = "CH")]
     pub reference: Option<Channel>,
-    /// Delays file to write with --reference.
+    /// Delays file to write with --reference (an existing one is kept unless --force).
     #[arg(long, default_value = "delays.toml", value_name = "FILE")]
     pub delays_out: PathBuf,
     /// Plot the histograms: one file per pair (`NAME-A-B.png|svg`).
@@ -40,21 +45,26 @@ pub struct Args {
 
 pub fn run(args: Args, g: &Global) -> Result<()> {
     args.out.precheck()?;
+    if args.reference.is_some() {
+        common::precheck_output(&args.delays_out, args.out.force)?;
+    }
     let cfg = ScanConfig { pairs: args.pairs.pairs()?, delays: args.pairs.delays()?, span_ps: args.span_ps, bin_ps: args.bin_ps };
     let mode = args.input.mode()?;
     let sources = super::open(&args.input, g)?;
-    let block = pipeline::scan_sources(&args.label, &sources, &cfg, mode, g.quiet)?;
-    let proposal = args.reference.map(|r| scan::propose_delays(&block.scans, r));
-    if let Some((delays, unreached)) = &proposal {
-        if !unreached.is_empty() && !g.quiet {
-            eprintln!("tagsieve: no coincidence peak links channel(s) {unreached:?} to the reference; they keep delay 0");
-        }
-        let mut d = delays.clone();
-        for c in unreached {
-            d.by_channel.entry(*c).or_insert(0);
-        }
-        tagsieve::output::atomic::write_bytes(&args.delays_out, d.to_toml().as_bytes(), true)?;
+    if let (Some(r), Some(chans)) = (args.reference, pipeline::declared_channels(&sources)) {
+        check_reference(r, &chans)?;
     }
+    let block = pipeline::scan_sources(&args.label, &sources, &cfg, mode, g.quiet)?;
+    let proposal = match args.reference {
+        Some(r) => {
+            let chans: Vec<Channel> = block.singles.iter().map(|s| s.channel).collect();
+            check_reference(r, &chans)?;
+            let d = propose(&block, r, &chans, &cfg.delays);
+            tagsieve::output::atomic::write_bytes(&args.delays_out, d.to_toml().as_bytes(), args.out.force)?;
+            Some(d)
+        }
+        None => None,
+    };
     if let Some(plot) = &args.plot {
         for s in &block.scans {
             let path = super::per_pair_path(plot, s.a, s.b, block.scans.len());
@@ -70,16 +80,49 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         super::write_tables(std::slice::from_ref(&block), p, vec![], out, &args.out)?;
     }
     if !args.out.to_stdout() {
-        print_scan(&block, proposal.as_ref().map(|x| &x.0), &args, g);
+        print_scan(&block, proposal.as_ref(), &args, g);
+    } else if let Some(d) = &proposal {
+        // The tables took stdout: the channels without a delay still get said.
+        for (c, why) in &d.not_found {
+            eprintln!("tagsieve: no delay found for channel {c}: {why}; it is not in {}", args.delays_out.display());
+        }
     }
     Ok(())
+}
+
+fn check_reference(r: Channel, channels: &[Channel]) -> Result<()> {
+    if channels.contains(&r) {
+        return Ok(());
+    }
+    let have: Vec<String> = channels.iter().map(|c| c.to_string()).collect();
+    Err(Error::Usage(format!("--reference {r}: no input provides channel {r}; expected one of {}", have.join(", "))))
+}
+
+/// The scan's proposal, plus the delays given with `--delay` for channels it did not find
+/// (moved into the proposal's frame, where the reference has delay 0).
+fn propose(block: &BlockTables, r: Channel, channels: &[Channel], given: &engine::Delays) -> engine::Delays {
+    let mut d = scan::propose_delays(&block.scans, r, channels);
+    for (c, v) in &given.by_channel {
+        if d.by_channel.contains_key(c) || given.obtained.get(c).map(String::as_str) != Some(engine::delays::FROM_FLAG) {
+            continue;
+        }
+        let shift = given.get(r);
+        d.by_channel.insert(*c, v - shift);
+        let how = if shift == 0 { "given with --delay; not found by the scan".to_string() } else { format!("given with --delay ({v} ps, less the reference's {shift} ps); not found by the scan") };
+        d.obtained.insert(*c, how);
+        d.not_found.remove(c);
+    }
+    d
 }
 
 fn print_scan(block: &BlockTables, proposal: Option<&engine::Delays>, args: &Args, g: &Global) {
     if g.json {
         let mut v = super::block_json(block);
         if let Some(d) = proposal {
+            let keyed = |m: &std::collections::BTreeMap<Channel, String>| serde_json::json!(m.iter().map(|(k, v)| (k.to_string(), v.clone())).collect::<std::collections::BTreeMap<_, _>>());
             v["proposed_delays_ps"] = serde_json::json!(d.by_channel.iter().map(|(k, v)| (k.to_string(), *v)).collect::<std::collections::BTreeMap<_, _>>());
+            v["delays_obtained"] = keyed(&d.obtained);
+            v["delays_not_found"] = keyed(&d.not_found);
             v["delays_file"] = serde_json::json!(args.delays_out);
         }
         common::print_json(&v);
@@ -105,9 +148,15 @@ fn print_scan(block: &BlockTables, proposal: Option<&engine::Delays>, args: &Arg
         println!("  (height and background: counts per {bin} bin)");
     }
     if let Some(d) = proposal {
-        println!("proposed delays (reference channel {}), written to {}:", d.reference.unwrap_or(0), args.delays_out.display());
+        println!("delays (reference channel {}), written to {}:", d.reference.unwrap_or(0), args.delays_out.display());
         for (c, v) in &d.by_channel {
-            println!("  {c} = {v} ps");
+            println!("  {c} = {v} ps   ({})", d.obtained.get(c).map(String::as_str).unwrap_or("?"));
+        }
+        if !d.not_found.is_empty() {
+            println!("no delay found (left out of {}; count, sweep and chsh refuse these channels until one is given):", args.delays_out.display());
+            for (c, why) in &d.not_found {
+                println!("  {c}: {why}");
+            }
         }
     }
 }

@@ -51,7 +51,7 @@ pub struct Args {
     #[arg(long, value_enum, default_value_t = FormatArg::Container)]
     pub format: FormatArg,
     /// Coincidence window to record in run.toml (ps); default: none, chosen later by a sweep.
-    #[arg(long, value_name = "PS")]
+    #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long, value_name = "PS")]
     pub window_ps: Option<u64>,
     /// Leave the true cable delays out of run.toml (so they must be found with scan).
     #[arg(long)]

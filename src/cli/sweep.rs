@@ -15,16 +15,16 @@ pub struct Args {
     #[command(flatten)]
     pub pairs: PairArgs,
     /// Windows to try, ps (comma-separated). Overrides --from-ps/--to-ps/--step-ps.
-    #[arg(long, value_delimiter = ',', value_name = "PS")]
+    #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long, value_delimiter = ',', value_name = "PS")]
     pub windows_ps: Vec<u64>,
     /// Smallest window of the range, ps.
-    #[arg(long, default_value_t = 100, value_name = "PS")]
+    #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long, default_value_t = 100, value_name = "PS")]
     pub from_ps: u64,
     /// Largest window of the range, ps.
-    #[arg(long, default_value_t = 3000, value_name = "PS")]
+    #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long, default_value_t = 3000, value_name = "PS")]
     pub to_ps: u64,
     /// Step of the range, ps.
-    #[arg(long, default_value_t = 100, value_name = "PS")]
+    #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long, default_value_t = 100, value_name = "PS")]
     pub step_ps: u64,
     /// How to recommend a window: `net-significance` (largest net/σ_net) or
     /// `peak-fraction` (smallest window holding ≥ --fraction of the widest window's net counts).

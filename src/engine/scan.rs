@@ -64,10 +64,16 @@ fn bin_centre(i: usize, span_ps: u64, bin_ps: u64) -> f64 {
     -(span_ps as f64) + (i as f64) * bin_ps as f64 + (bin_ps as f64 - 1.0) / 2.0
 }
 
+/// A peak's highest bin must stand this many Poisson σ of the background above it …
+pub const PEAK_MIN_SIGMA: f64 = 5.0;
+/// … and at least this many counts.
+pub const PEAK_MIN_COUNTS: f64 = 10.0;
+
 /// Find the coincidence peak.
 ///
 /// Background: the median bin (robust while the peak fills under half the bins). Peak:
-/// the highest bin, accepted when it stands ≥ 5 σ (Poisson) and ≥ 10 counts above the
+/// the highest bin, accepted when it stands ≥ [`PEAK_MIN_SIGMA`] σ (Poisson σ of the
+/// background, √max(background, 1)) and ≥ [`PEAK_MIN_COUNTS`] counts above the
 /// background. FWHM: linear interpolation of the half-height crossings. Delay: centroid of
 /// background-subtracted bins within ±1.5 FWHM (at least ±2 bins) of the maximum; its σ is
 /// max(FWHM/2.355, bin/√12)/√(net counts).
@@ -80,7 +86,7 @@ pub fn fit_peak(counts: &[u64], span_ps: u64, bin_ps: u64) -> Option<PeakFit> {
     let background = sorted[sorted.len() / 2] as f64;
     let (imax, &cmax) = counts.iter().enumerate().max_by_key(|&(i, &c)| (c, std::cmp::Reverse(i)))?;
     let height = cmax as f64 - background;
-    if height < 10.0 || height < 5.0 * background.max(1.0).sqrt() {
+    if height < PEAK_MIN_COUNTS || height < PEAK_MIN_SIGMA * background.max(1.0).sqrt() {
         return None;
     }
     let half = background + height / 2.0;
@@ -121,17 +127,17 @@ pub fn fit_peak(counts: &[u64], span_ps: u64, bin_ps: u64) -> Option<PeakFit> {
 
 /// Propose a delay for every channel relative to `reference` (whose delay becomes 0).
 ///
-/// Each pair with a peak links two channels: d_B − d_A = (current δ) + (peak Δ). Starting
-/// from the reference, the link with the most net counts to a channel not yet placed is
-/// taken first (a maximum spanning tree), so a channel without a direct peak to the
-/// reference (the other output of the same analyzer) is placed through one that has.
-/// Returns the delays and the channels that no peak reaches.
-pub fn propose_delays(scans: &[ScanResult], reference: Channel) -> (Delays, Vec<Channel>) {
+/// Each pair with a peak ([`fit_peak`]'s criterion) links two channels: d_B − d_A =
+/// (current δ) + (peak Δ). Starting from the reference, the link with the most net counts
+/// to a channel not yet placed is taken first (a maximum spanning tree), so a channel
+/// without a direct peak to the reference (the other output of the same analyzer) is
+/// placed through one that has. `channels` are all the block's channels: each one no peak
+/// reaches is returned in [`Delays::not_found`] with the reason, never with a delay.
+pub fn propose_delays(scans: &[ScanResult], reference: Channel, channels: &[Channel]) -> Delays {
     let mut placed = std::collections::BTreeMap::from([(reference, 0i64)]);
-    let mut channels: std::collections::BTreeSet<Channel> = scans.iter().flat_map(|s| [s.a, s.b]).collect();
-    channels.insert(reference);
+    let mut obtained = std::collections::BTreeMap::from([(reference, "reference channel".to_string())]);
     loop {
-        let mut best: Option<(f64, Channel, i64)> = None;
+        let mut best: Option<(f64, Channel, i64, &ScanResult)> = None;
         for s in scans {
             let Some(p) = s.peak else { continue };
             let rel = s.rel_delay_ps as f64 + p.delay_ps; // measured d_B − d_A
@@ -141,18 +147,39 @@ pub fn propose_delays(scans: &[ScanResult], reference: Channel) -> (Delays, Vec<
                 _ => None,
             };
             if let Some((ch, d)) = cand {
-                if best.map_or(true, |(n, _, _)| p.net_counts > n) {
-                    best = Some((p.net_counts, ch, d.round() as i64));
+                if best.map_or(true, |(n, ..)| p.net_counts > n) {
+                    best = Some((p.net_counts, ch, d.round() as i64, s));
                 }
             }
         }
-        match best {
-            Some((_, ch, d)) => {
-                placed.insert(ch, d);
-            }
-            None => break,
-        }
+        let Some((net, ch, d, s)) = best else { break };
+        placed.insert(ch, d);
+        let p = s.peak.expect("chosen links have a peak");
+        obtained.insert(ch, format!("scan: peak of pair {}:{} ({net:.0} net counts, σ {:.1} ps)", s.a, s.b, p.delay_sigma_ps));
     }
-    let unreached = channels.iter().copied().filter(|c| !placed.contains_key(c)).collect();
-    (Delays { by_channel: placed, reference: Some(reference) }, unreached)
+    let mut all: std::collections::BTreeSet<Channel> = channels.iter().copied().collect();
+    all.extend(scans.iter().flat_map(|s| [s.a, s.b]));
+    let not_found = all.into_iter().filter(|c| !placed.contains_key(c)).map(|c| (c, why_not_found(scans, c, reference))).collect();
+    Delays { by_channel: placed, reference: Some(reference), obtained, not_found, file: None }
+}
+
+/// The peak criterion in words, for messages and the delays file.
+pub fn peak_criterion(span_ps: u64) -> String {
+    format!(
+        "no peak within ±{span_ps} ps whose highest bin stands ≥ {PEAK_MIN_SIGMA} σ (Poisson σ of the median bin) and ≥ {PEAK_MIN_COUNTS} counts above the background"
+    )
+}
+
+fn why_not_found(scans: &[ScanResult], c: Channel, reference: Channel) -> String {
+    let mine: Vec<&ScanResult> = scans.iter().filter(|s| s.a == c || s.b == c).collect();
+    let list = |v: &[&ScanResult]| v.iter().map(|s| format!("{}:{}", s.a, s.b)).collect::<Vec<_>>().join(", ");
+    let with_peak: Vec<&ScanResult> = mine.iter().copied().filter(|s| s.peak.is_some()).collect();
+    match (mine.first(), with_peak.is_empty()) {
+        (None, _) => "in no scanned pair".into(),
+        (Some(s), true) => format!("{} in pair(s) {}", peak_criterion(s.span_ps), list(&mine)),
+        (Some(_), false) => format!(
+            "no pair with the reference {reference}: its peaks (pair(s) {}) link it only to channels that no peak links to the reference",
+            list(&with_peak)
+        ),
+    }
 }

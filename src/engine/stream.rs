@@ -218,11 +218,12 @@ impl Streamer {
         let s = self.channels.entry(t.channel).or_insert_with(|| ChannelSummary { channel: t.channel, name: t.name.clone(), ..Default::default() });
         if let (Some(last), Some(&first)) = (s.last_ps, t.times_ps.first()) {
             if first < last {
-                return Err(Error::Usage(format!("channel {}: chunk starts at {first} ps before the previous chunk's {last} ps", t.channel)));
+                // The pipeline has the reader locate it (file, record, byte offset).
+                return Err(Error::Unordered { channel: t.channel });
             }
         }
         if t.times_ps[0] < start {
-            return Err(Error::Usage(format!("channel {}: event at {} ps precedes the stream's start {start} ps", t.channel, t.times_ps[0])));
+            return Err(Error::Unordered { channel: t.channel });
         }
         s.events += t.len() as u64;
         s.first_ps.get_or_insert(t.times_ps[0]);
@@ -299,4 +300,26 @@ fn finish(task: &PairTask, p: &mut PairState, n_done: usize, seen: i64) {
     let keep_from = next_a.saturating_add(p.reach.0);
     let n = p.buf_b.partition_point(|&x| (x as i64) < keep_from);
     p.buf_b.drain(..n);
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A chunk that starts before the previous chunk's last event is an
+    /// [`Error::Unordered`] naming the channel, which the pipeline has the reader locate
+    /// (`read::locate_disorder_streamed`); it is never a usage error without a file.
+    #[test]
+    fn a_descent_between_chunks_is_unordered() {
+        let task = PairTask::Count { centres_ps: vec![0], half_ps: 10 };
+        let mut s = Streamer::new(task, vec![(1, 2)], Default::default(), u64::MAX);
+        s.push(&[ChannelTags::owned(1, "", vec![100, 200]), ChannelTags::owned(2, "", vec![150])]).unwrap();
+        let e = s.push(&[ChannelTags::owned(1, "", vec![199, 300])]).unwrap_err();
+        assert!(matches!(e, Error::Unordered { channel: 1 }), "{e}");
+        // Ties across a chunk edge are fine (equal stamps are ordered).
+        let task = PairTask::Count { centres_ps: vec![0], half_ps: 10 };
+        let mut s = Streamer::new(task, vec![(1, 2)], Default::default(), u64::MAX);
+        s.push(&[ChannelTags::owned(1, "", vec![100, 200])]).unwrap();
+        s.push(&[ChannelTags::owned(1, "", vec![200, 300])]).unwrap();
+    }
 }

@@ -179,6 +179,41 @@ pub fn locate_disorder<T>(r: Result<T>, sources: &[Box<dyn TagSource>]) -> Resul
     }
 }
 
+/// The result of a streamed engine pass over `source`'s chunks: an [`Error::Unordered`]
+/// is replaced by the reader's located error, found by reading the chunks again (bounded
+/// memory); should the reader pass them all, the error still names the file and channel.
+pub fn locate_disorder_streamed<T>(r: Result<T>, source: &dyn TagSource) -> Result<T> {
+    match r {
+        Err(Error::Unordered { channel }) => {
+            let mut last: Option<u64> = None;
+            let mut events = 0u64;
+            for chunk in source.chunks(1 << 20)? {
+                for t in chunk?.iter().filter(|t| t.channel == channel) {
+                    if let (Some(l), Some(&first)) = (last, t.times_ps.first()) {
+                        if first < l {
+                            return Err(Error::bad_input(
+                                source.file().path,
+                                format!("channel {channel}, its event {events}"),
+                                format!("timestamp {first} ps after {l} ps"),
+                                format!("≥ {l} ps (each channel's timestamps ascending)"),
+                            ));
+                        }
+                    }
+                    events += t.len() as u64;
+                    last = t.times_ps.last().copied().or(last);
+                }
+            }
+            Err(Error::bad_input(
+                source.file().path,
+                format!("channel {channel}"),
+                "timestamps that go backwards between two chunks of the streamed pass",
+                "ascending timestamps in each channel",
+            ))
+        }
+        r => r,
+    }
+}
+
 /// Whether `path` starts with the container's magic bytes.
 pub fn is_container(path: &Path) -> bool {
     mapping::Mapping::open_buffered(path).ok().is_some_and(|m| container::has_magic(&m).unwrap_or(false))
