@@ -21,7 +21,7 @@ pub struct DemoConfig {
     pub out_dir: PathBuf,
     pub seed: u64,
     /// Length of each CHSH block, s.
-    pub block_s: f64,
+    pub duration_s: f64,
     pub quiet: bool,
 }
 
@@ -60,7 +60,7 @@ fn say(quiet: bool, msg: impl AsRef<str>) {
 /// The scenario's CHSH run, four blocks, delays left out of the manifest.
 fn chsh_run(cfg: &DemoConfig) -> RunConfig {
     let (alice, bob) = plan::chsh_labels(0.0, 45.0, 22.5, 67.5);
-    run_config(cfg, alice, bob, cfg.block_s, "Larch–Rowan demo: CHSH settings")
+    run_config(cfg, alice, bob, cfg.duration_s, "Larch–Rowan demo: CHSH settings")
 }
 
 /// A visibility series: Larch at 0°, Rowan from 0° to 180° in 15° steps.
@@ -123,7 +123,7 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
     say(q, "scanning block ab for the delays (reference channel 1)");
     let ab = m.blocks.first().ok_or_else(|| Error::Usage("demo: no blocks".into()))?;
     let ab_sources = pipeline::open_block(&m.block_inputs(ab), None, opts)?;
-    let coarse = ScanConfig { pairs: vec![], delays: Delays::default(), span_ps: 100_000, bin_ps: 20 };
+    let coarse = ScanConfig { pairs: vec![], delays: Delays::default(), half_range_ps: 100_000, bin_ps: 20 };
     let coarse_block = pipeline::scan_sources("ab", &ab_sources, &coarse, PassMode::Auto, true)?;
     let (mut delays, unreached) = scan::propose_delays(&coarse_block.scans, 1);
     if !unreached.is_empty() {
@@ -133,7 +133,7 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
     output::atomic::write_bytes(&dir.join("delays.toml"), delays.to_toml().as_bytes(), true)?;
 
     let pairs = pipeline::role_pairs(&m)?;
-    let fine = ScanConfig { pairs: pairs.clone(), delays: delays.clone(), span_ps: 2_000, bin_ps: 10 };
+    let fine = ScanConfig { pairs: pairs.clone(), delays: delays.clone(), half_range_ps: 2_000, bin_ps: 10 };
     let fine_block = pipeline::scan_sources("ab", &ab_sources, &fine, PassMode::Auto, true)?;
 
     say(q, "sweeping the window on block ab");

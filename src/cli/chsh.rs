@@ -37,6 +37,8 @@ pub struct Args {
     /// Pass over the data: auto, whole or stream (see `count --help`).
     #[arg(long = "pass", default_value = "auto", value_name = "MODE")]
     pub pass: String,
+    #[command(flatten)]
+    pub read: super::ReadArgs,
     /// Sign convention for the three-setting form: `correlated` (E(a,a) = +1, as for
     /// (|HH⟩+|VV⟩)/√2; the form is applied to −E) or `anti-correlated` (singlet-type).
     #[arg(long, default_value = "correlated", value_name = "CONV")]
@@ -79,7 +81,7 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         "anti-correlated" => Convention::AntiCorrelated,
         o => return Err(Error::Usage(format!("--bell3-convention {o}: expected correlated or anti-correlated"))),
     };
-    let (blocks, files) = pipeline::count_run(&m, &cfg, g.read_options(), pipeline::PassMode::parse(&args.pass)?, g.quiet)?;
+    let (blocks, files) = pipeline::count_run(&m, &cfg, args.read.read_options(), pipeline::PassMode::parse(&args.pass)?, g.quiet)?;
     let outcome = analyse(&m, blocks, window_ps, conv)?;
     if let Some(p) = &args.plot {
         match &outcome.chsh {

@@ -13,9 +13,12 @@ pub struct Args {
     pub input: InputArgs,
     #[command(flatten)]
     pub pairs: PairArgs,
-    /// Half-range of the histogram, ps: Δ from −span to +span.
+    /// Half-range H of the histogram, ps: Δ from −H to +H.
     #[arg(long, default_value_t = 100_000, value_name = "PS")]
-    pub span_ps: u64,
+    pub half_range_ps: u64,
+    /// Deprecated spelling of --half-range-ps ("span" is the acquisition span).
+    #[arg(long = "span-ps", value_name = "PS", hide = true, conflicts_with = "half_range_ps")]
+    pub span_ps: Option<u64>,
     /// Bin width, ps.
     #[arg(long, default_value_t = 20, value_name = "PS")]
     pub bin_ps: u64,
@@ -38,9 +41,16 @@ pub struct Args {
     pub out: OutputArgs,
 }
 
+impl Args {
+    /// --half-range-ps, or the value of its deprecated spelling --span-ps (with a warning).
+    fn half_range_ps(&self) -> u64 {
+        super::deprecated(self.span_ps, "--span-ps", "--half-range-ps").unwrap_or(self.half_range_ps)
+    }
+}
+
 pub fn run(args: Args, g: &Global) -> Result<()> {
     args.out.precheck()?;
-    let cfg = ScanConfig { pairs: args.pairs.pairs()?, delays: args.pairs.delays()?, span_ps: args.span_ps, bin_ps: args.bin_ps };
+    let cfg = ScanConfig { pairs: args.pairs.pairs()?, delays: args.pairs.delays()?, half_range_ps: args.half_range_ps(), bin_ps: args.bin_ps };
     let mode = args.input.mode()?;
     let sources = super::open(&args.input, g)?;
     let block = pipeline::scan_sources(&args.label, &sources, &cfg, mode, g.quiet)?;
@@ -64,7 +74,7 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     if let Some(out) = &args.out.output {
         let p = Provenance::new(common::command_line())
             .param("command", AttrValue::Str("scan".into()))
-            .param("span_ps", AttrValue::U64(cfg.span_ps))
+            .param("half_range_ps", AttrValue::U64(cfg.half_range_ps))
             .param("bin_ps", AttrValue::U64(cfg.bin_ps));
         let p = super::add_inputs(p, &sources)?;
         super::write_tables(std::slice::from_ref(&block), p, vec![], out, &args.out)?;

@@ -205,7 +205,7 @@ impl ScanFigure<'_> {
         Y::CoordDescType: Ranged<ValueType = f64> + ValueFormatter<f64>,
     {
         let s = self.scan;
-        let (unit, uname) = time_unit(s.span_ps as f64);
+        let (unit, uname) = time_unit(s.half_range_ps as f64);
         let edges: Vec<f64> = s.bin_edges_ps().iter().map(|e| *e as f64 / unit).collect();
         let (x0, x1) = (edges[0], *edges.last().expect("non-empty"));
         let mut chart = ChartBuilder::on(root)
