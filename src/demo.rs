@@ -46,6 +46,8 @@ pub struct DemoSummary {
     pub s_raw: (f64, f64),
     pub s_corrected: Option<(f64, f64)>,
     pub violation_sigma: f64,
+    /// The raw primary S against the local bound, in words (or that there is no violation).
+    pub verdict: String,
     pub visibility: Option<(f64, f64)>,
     pub tables: Vec<PathBuf>,
     pub plots: Vec<PathBuf>,
@@ -172,7 +174,7 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
     let settings = pipeline::setting_counts(&m, &blocks)?;
     let report: ChshReport = pipeline::chsh_report(&settings).ok_or_else(|| Error::Usage("demo: CHSH settings missing".into()))??;
     let p = plots_dir.join("chsh-correlations.png");
-    plot::plot_correlations(&report, Some(run.source.visibility), &p, true)?;
+    plot::plot_correlations(&report, Some(plot::ModelLine { visibility: run.source.visibility, source: "simulated" }), &p, true)?;
     plots.push(p);
 
     let mut all_blocks = vec![coarse_block.clone(), fine_block.clone(), sweep_block.clone()];
@@ -223,6 +225,7 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
         s_raw: (primary.s, primary.sigma),
         s_corrected: report.corrected.as_ref().map(|c| (c.primary().s, c.primary().sigma)),
         violation_sigma: primary.violation_sigma,
+        verdict: primary.verdict(),
         visibility: fits.first().map(|(f, _)| (f.visibility.value, f.visibility.sigma)),
         tables: vec![run_h5, series_h5, dir.join("delays.toml")],
         plots,

@@ -47,7 +47,7 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     println!("window chosen by sweep (largest net/σ): {}", common::ps(s.window_ps as f64));
     let cars: Vec<String> = s.car.iter().map(|((a, b), c)| format!("{a}:{b} {c:.0}")).collect();
     println!("CAR in block ab: {}", cars.join(", "));
-    println!("S = {:.4} ± {:.4} (raw), {:+.1} σ above the local bound 2", s.s_raw.0, s.s_raw.1, s.violation_sigma);
+    println!("S = {:.4} ± {:.4} (raw), {}", s.s_raw.0, s.s_raw.1, s.verdict);
     if let Some((v, e)) = s.s_corrected {
         println!("S = {v:.4} ± {e:.4} (accidental-corrected)");
     }
