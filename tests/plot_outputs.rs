@@ -171,7 +171,7 @@ fn sweep_plots() {
 #[test]
 fn correlation_plots() {
     let r = report();
-    check_both("chsh", "CHSH correlations: S = ", |p| plot::plot_correlations(&r, Some(0.92), p, true).unwrap());
+    check_both("chsh", "CHSH correlations: S = ", |p| plot::plot_correlations(&r, Some(plot::ModelLine { visibility: 0.92, source: "simulated" }), p, true).unwrap());
     check_both("chsh_plain", "CHSH correlations: S = ", |p| plot::plot_correlations(&r, None, p, true).unwrap());
 }
 
