@@ -21,7 +21,7 @@ pub struct DemoConfig {
     pub out_dir: PathBuf,
     pub seed: u64,
     /// Length of each CHSH block, s.
-    pub block_s: f64,
+    pub duration_s: f64,
     pub quiet: bool,
 }
 
@@ -46,6 +46,8 @@ pub struct DemoSummary {
     pub s_raw: (f64, f64),
     pub s_corrected: Option<(f64, f64)>,
     pub violation_sigma: f64,
+    /// The raw primary S against the local bound, in words (or that there is no violation).
+    pub verdict: String,
     pub visibility: Option<(f64, f64)>,
     pub tables: Vec<PathBuf>,
     pub plots: Vec<PathBuf>,
@@ -60,7 +62,7 @@ fn say(quiet: bool, msg: impl AsRef<str>) {
 /// The scenario's CHSH run, four blocks, delays left out of the manifest.
 fn chsh_run(cfg: &DemoConfig) -> RunConfig {
     let (alice, bob) = plan::chsh_labels(0.0, 45.0, 22.5, 67.5);
-    run_config(cfg, alice, bob, cfg.block_s, "Larch–Rowan demo: CHSH settings")
+    run_config(cfg, alice, bob, cfg.duration_s, "Larch–Rowan demo: CHSH settings")
 }
 
 /// A visibility series: Larch at 0°, Rowan from 0° to 180° in 15° steps.
@@ -123,7 +125,7 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
     say(q, "scanning block ab for the delays (reference channel 1)");
     let ab = m.blocks.first().ok_or_else(|| Error::Usage("demo: no blocks".into()))?;
     let ab_sources = pipeline::open_block(&m.block_inputs(ab), None, opts)?;
-    let coarse = ScanConfig { pairs: vec![], delays: Delays::default(), span_ps: 100_000, bin_ps: 20 };
+    let coarse = ScanConfig { pairs: vec![], delays: Delays::default(), half_range_ps: 100_000, bin_ps: 20 };
     let coarse_block = pipeline::scan_sources("ab", &ab_sources, &coarse, PassMode::Auto, true)?;
     let channels: Vec<_> = coarse_block.singles.iter().map(|s| s.channel).collect();
     let delays = scan::propose_delays(&coarse_block.scans, 1, &channels);
@@ -133,7 +135,7 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
     output::atomic::write_bytes(&dir.join("delays.toml"), delays.to_toml().as_bytes(), true)?;
 
     let pairs = pipeline::role_pairs(&m)?;
-    let fine = ScanConfig { pairs: pairs.clone(), delays: delays.clone(), span_ps: 2_000, bin_ps: 10 };
+    let fine = ScanConfig { pairs: pairs.clone(), delays: delays.clone(), half_range_ps: 2_000, bin_ps: 10 };
     let fine_block = pipeline::scan_sources("ab", &ab_sources, &fine, PassMode::Auto, true)?;
 
     say(q, "sweeping the window on block ab");
@@ -172,7 +174,7 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
     let settings = pipeline::setting_counts(&m, &blocks)?;
     let report: ChshReport = pipeline::chsh_report(&settings).ok_or_else(|| Error::Usage("demo: CHSH settings missing".into()))??;
     let p = plots_dir.join("chsh-correlations.png");
-    plot::plot_correlations(&report, Some(run.source.visibility), &p, true)?;
+    plot::plot_correlations(&report, Some(plot::ModelLine { visibility: run.source.visibility, source: "simulated" }), &p, true)?;
     plots.push(p);
 
     let mut all_blocks = vec![coarse_block.clone(), fine_block.clone(), sweep_block.clone()];
@@ -223,6 +225,7 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
         s_raw: (primary.s, primary.sigma),
         s_corrected: report.corrected.as_ref().map(|c| (c.primary().s, c.primary().sigma)),
         violation_sigma: primary.violation_sigma,
+        verdict: primary.verdict(),
         visibility: fits.first().map(|(f, _)| (f.visibility.value, f.visibility.sigma)),
         tables: vec![run_h5, series_h5, dir.join("delays.toml")],
         plots,

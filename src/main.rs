@@ -17,7 +17,7 @@ use std::process::ExitCode;
     propagate_version = true,
     after_help = "Exit codes: 0 done; 1 runtime failure (I/O, full disk, input changed while read); 2 bad input or usage; 130 interrupted (no output left behind)."
 )]
-struct Cli {
+pub(crate) struct Cli {
     #[command(flatten)]
     global: cli::Global,
     #[command(subcommand)]
@@ -25,7 +25,7 @@ struct Cli {
 }
 
 #[derive(Subcommand, Debug)]
-enum Command {
+pub(crate) enum Command {
     /// Check tag files: per-channel events, span, rates, gaps, order problems.
     Inspect(cli::inspect::Args),
     /// Convert per-channel arrays or interleaved records into a container file.
@@ -46,6 +46,23 @@ enum Command {
     Completions(cli::completions::Args),
 }
 
+impl Command {
+    /// The worker-thread count asked for; 0 (one per core) where the command takes none.
+    fn threads(&self) -> usize {
+        match self {
+            Command::Inspect(a) => a.read.threads.threads,
+            Command::Import(a) => a.read.threads.threads,
+            Command::Simulate(a) => a.threads.threads,
+            Command::Scan(a) => a.input.read.threads.threads,
+            Command::Sweep(a) => a.input.read.threads.threads,
+            Command::Count(a) => a.input.read.threads.threads,
+            Command::Chsh(a) => a.read.threads.threads,
+            Command::Demo(a) => a.threads.threads,
+            Command::Completions(_) => 0,
+        }
+    }
+}
+
 fn main() -> ExitCode {
     // A closed pipe on stdout (`tagsieve inspect --json | head`) ends the process quietly,
     // as for other Unix filters, instead of a panic in println!.
@@ -63,7 +80,7 @@ fn main() -> ExitCode {
         }
     };
     cli::install_signal_handler();
-    cli::configure_threads(&cli.global);
+    cli::configure_threads(cli.command.threads());
     let result = match cli.command {
         Command::Inspect(a) => cli::inspect::run(a, &cli.global),
         Command::Import(a) => cli::import::run(a, &cli.global),

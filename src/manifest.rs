@@ -204,14 +204,57 @@ impl Roles {
     }
 }
 
-/// Analyzer settings by label, angles in degrees, per side.
+/// Analyzer settings by label, angles in degrees, per side. Written in natural label order
+/// (b0, b1, b2, b10: digit runs compare as numbers).
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct Settings {
-    #[serde(default)]
+    #[serde(default, serialize_with = "in_natural_order")]
     pub alice: BTreeMap<String, f64>,
-    #[serde(default)]
+    #[serde(default, serialize_with = "in_natural_order")]
     pub bob: BTreeMap<String, f64>,
+}
+
+fn in_natural_order<S: serde::Serializer>(m: &BTreeMap<String, f64>, s: S) -> std::result::Result<S::Ok, S::Error> {
+    use serde::ser::SerializeMap;
+    let mut keys: Vec<&String> = m.keys().collect();
+    keys.sort_by(|a, b| natural_cmp(a, b));
+    let mut map = s.serialize_map(Some(keys.len()))?;
+    for k in keys {
+        map.serialize_entry(k, &m[k])?;
+    }
+    map.end()
+}
+
+/// Natural order of labels: runs of ASCII digits compare by value, everything else by
+/// character ("b2" < "b10"); ties broken by plain string order so the order is total.
+pub fn natural_cmp(a: &str, b: &str) -> std::cmp::Ordering {
+    fn runs(s: &str) -> Vec<(bool, &str)> {
+        let mut out = Vec::new();
+        let mut start = 0;
+        let bytes = s.as_bytes();
+        for i in 1..=bytes.len() {
+            if i == bytes.len() || bytes[i].is_ascii_digit() != bytes[start].is_ascii_digit() {
+                out.push((bytes[start].is_ascii_digit(), &s[start..i]));
+                start = i;
+            }
+        }
+        out
+    }
+    let (ra, rb) = (runs(a), runs(b));
+    for (x, y) in ra.iter().zip(&rb) {
+        let o = match (x, y) {
+            ((true, dx), (true, dy)) => {
+                let (tx, ty) = (dx.trim_start_matches('0'), dy.trim_start_matches('0'));
+                tx.len().cmp(&ty.len()).then_with(|| tx.cmp(ty))
+            }
+            ((_, sx), (_, sy)) => sx.cmp(sy),
+        };
+        if o.is_ne() {
+            return o;
+        }
+    }
+    ra.len().cmp(&rb.len()).then_with(|| a.cmp(b))
 }
 
 /// One block of tags: a stretch of time at one setting pair.
@@ -298,7 +341,7 @@ impl Manifest {
     /// The manifest as TOML text (what [`Manifest::save`] writes).
     pub fn to_toml_string(&self) -> Result<String> {
         let body = toml::to_string(self).map_err(|e| Error::Usage(format!("manifest: cannot write TOML: {e}")))?;
-        Ok(format!("# tagsieve run manifest (schema: docs/manifest.md)\n{body}"))
+        Ok(format!("# tagsieve run manifest (schema: docs/manifest.md)\n{}", quote_role_keys(&body)))
     }
 
     /// Write the manifest atomically to `path` (refusing to replace it unless `force`).
@@ -381,6 +424,25 @@ impl Manifest {
         }
         pairs
     }
+}
+
+/// The role keys quoted alike: the TOML writer must quote `"alice+"` but would leave
+/// `alice-` bare (a valid bare key), which reads as two conventions. Only the `[roles]`
+/// table's own `alice±`/`bob±` lines are touched.
+fn quote_role_keys(toml_text: &str) -> String {
+    let mut in_roles = false;
+    let mut out = String::with_capacity(toml_text.len() + 8);
+    for line in toml_text.split_inclusive('\n') {
+        if line.starts_with('[') {
+            in_roles = line.trim_end() == "[roles]";
+        }
+        let bare = Role::ALL.iter().map(|r| r.to_string()).find(|k| line.starts_with(&format!("{k} = ")));
+        match bare {
+            Some(k) if in_roles => out.push_str(&format!("\"{k}\"{}", &line[k.len()..])),
+            _ => out.push_str(line),
+        }
+    }
+    out
 }
 
 /// `CH=PATH` → (CH, PATH) when CH is a channel number.

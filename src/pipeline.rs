@@ -177,7 +177,7 @@ pub fn sweep_sources(
 /// Delay scan of one block.
 ///
 /// A scan looks for delays, so a channel its delays file lacks starts from 0 here (the
-/// histogram's ±span is the search range); a `--delay` for a channel no input has is
+/// histogram's ±half-range is the search range); a `--delay` for a channel no input has is
 /// still refused.
 pub fn scan_sources(label: &str, sources: &[Box<dyn TagSource>], cfg: &ScanConfig, mode: PassMode, quiet: bool) -> Result<BlockTables> {
     let check = DelayCheck::before(sources, &cfg.delays, &cfg.pairs, false)?;

@@ -37,3 +37,31 @@ impl<'a> ChannelTags<'a> {
         self.times_ps.is_empty()
     }
 }
+
+/// Live time of tags observed together (one block, or the inputs given to one command), ps:
+/// from the earliest tag of any channel to the latest, counting the latest tick, so
+/// `last_ps − first_ps + 1`. `inspect`, `count` and every singles table use this one
+/// definition (README, "Rates").
+pub fn live_time_ps(first_ps: u64, last_ps: u64) -> u64 {
+    last_ps - first_ps + 1
+}
+
+/// Mean rate of `events` over a live time, Hz: `events / live time`; `None` for no live
+/// time. The one rate definition of the project (see [`live_time_ps`]).
+pub fn rate_hz(events: u64, live_time_ps: u64) -> Option<f64> {
+    (live_time_ps > 0).then(|| events as f64 / (live_time_ps as f64 * 1e-12))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn rate_is_events_over_the_inclusive_span() {
+        // Definition (README, "Rates"): tags at 0 and 999 999 999 999 ps span 1 s of live
+        // time, so 3 events give 3 Hz; common practice, no source.
+        assert_eq!(live_time_ps(0, 999_999_999_999), 1_000_000_000_000);
+        assert_eq!(rate_hz(3, live_time_ps(0, 999_999_999_999)), Some(3.0));
+        assert_eq!(rate_hz(5, 0), None);
+    }
+}

@@ -126,7 +126,7 @@ fn time_going_backwards_found_by_every_whole_file_pass() {
     let found = format!("timestamp {t} ps after {t0} ps");
     for cmd in [
         &["count", "-w", "1000", "1=g.u64", "2=far.u64"][..],
-        &["scan", "--span-ps", "2000", "--bin-ps", "100", "1=g.u64", "2=far.u64"][..],
+        &["scan", "--half-range-ps", "2000", "--bin-ps", "100", "1=g.u64", "2=far.u64"][..],
         &["sweep", "--windows-ps", "500,1000", "1=g.u64", "2=far.u64"][..],
     ] {
         let out = run(d.path(), cmd);
@@ -467,7 +467,7 @@ fn negative_window_gets_the_same_message_spaced_or_joined() {
 fn scan_span_and_bin_of_zero() {
     let d = Dir::new();
     good_pair(&d);
-    expect(&run(d.path(), &["scan", "--span-ps", "0", "1=x.u64", "2=y.u64"]), 2, &["--span-ps", "0 ps is not allowed here"]);
+    expect(&run(d.path(), &["scan", "--half-range-ps", "0", "1=x.u64", "2=y.u64"]), 2, &["--half-range-ps", "0 ps is not allowed here"]);
     expect(&run(d.path(), &["scan", "--bin-ps", "0", "1=x.u64", "2=y.u64"]), 2, &["--bin-ps", "0 ps is not allowed here"]);
 }
 

@@ -6,7 +6,7 @@ use common::tagsieve;
 use serde_json::Value;
 
 fn simulate(dir: &std::path::Path, extra: &[&str]) {
-    let out = tagsieve().args(["simulate", "--quiet", "--out"]).arg(dir).args(extra).output().unwrap();
+    let out = tagsieve().args(["simulate", "--quiet", "-o"]).arg(dir).args(extra).output().unwrap();
     assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
 }
 

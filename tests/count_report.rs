@@ -25,7 +25,7 @@ fn count_with(dir: &std::path::Path, json: bool, extra: &[&str]) -> String {
 fn simulated() -> tempfile::TempDir {
     let dir = tempfile::tempdir().unwrap();
     let sim = tagsieve()
-        .args(["simulate", "--quiet", "--force", "--format", "arrays", "--series", "22.5", "--duration-s", "0.5", "--out"])
+        .args(["simulate", "--quiet", "--force", "--format", "arrays", "--series", "22.5", "--duration-s", "0.5", "-o"])
         .arg(dir.path())
         .output()
         .unwrap();

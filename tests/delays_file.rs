@@ -40,7 +40,7 @@ fn refused(out: &Output, parts: &[&str]) -> String {
 /// A short simulated run with its delays left in the tags (the scan must find them).
 fn simulated_run() -> (tempfile::TempDir, PathBuf) {
     let dir = tempfile::tempdir().unwrap();
-    ok(&run(dir.path(), &["simulate", "--out", "run", "--duration-s", "0.3", "--seed", "11", "--omit-delays", "-q"]));
+    ok(&run(dir.path(), &["simulate", "-o", "run", "--duration-s", "0.3", "--seed", "11", "--omit-delays", "-q"]));
     let block = dir.path().join("run/ab.sieve");
     assert!(block.exists());
     (dir, block)
@@ -54,7 +54,7 @@ fn delays_toml(dir: &Path, name: &str) -> toml::Table {
 fn a_channel_outside_the_span_is_left_out_and_said_even_when_quiet() {
     let (dir, _) = simulated_run();
     let d = dir.path();
-    let stdout = ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--span-ps", "30000", "-q"]));
+    let stdout = ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--half-range-ps", "30000", "-q"]));
     let file = delays_toml(d, "delays.toml");
     let found = file["delays_ps"].as_table().unwrap();
     // Channels 3 and 4 arrive ≥ 40.6 ns late: no peak within ±30 ns, so no delay at all;
@@ -70,7 +70,7 @@ fn a_channel_outside_the_span_is_left_out_and_said_even_when_quiet() {
     assert!(stdout.contains("no delay found") && stdout.contains("  3: no peak") && stdout.contains("  4: no peak"), "{stdout}");
 
     // The JSON lists them with the reason too, and leaves them out of the proposal.
-    let out = ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--span-ps", "30000", "--json", "--delays-out", "d2.toml"]));
+    let out = ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--half-range-ps", "30000", "--json", "--delays-out", "d2.toml"]));
     let v: serde_json::Value = serde_json::from_str(&out).unwrap();
     assert!(v["proposed_delays_ps"].get("3").is_none());
     assert!(v["delays_not_found"]["3"].as_str().unwrap().contains("no peak"));
@@ -98,7 +98,7 @@ fn channels_in_no_pair_with_the_reference_get_their_reason() {
 fn a_given_delay_is_kept_for_a_channel_the_scan_did_not_find() {
     let (dir, _) = simulated_run();
     let d = dir.path();
-    ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--span-ps", "30000", "--delay", "3=41250", "-q"]));
+    ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--half-range-ps", "30000", "--delay", "3=41250", "-q"]));
     let file = delays_toml(d, "delays.toml");
     // With 3 shifted by its true delay, the scan finds it directly (and 2 through it).
     let found = file["delays_ps"].as_table().unwrap();
@@ -107,8 +107,8 @@ fn a_given_delay_is_kept_for_a_channel_the_scan_did_not_find() {
     assert!((found["3"].as_integer().unwrap() - 41250).abs() <= 40, "{found:?}");
     // Channel 4 is still compared at delay 0: its peaks lie ≥ 40 ns out, beyond ±30 ns.
     assert!(file["not_found"]["4"].as_str().unwrap().contains("no peak"));
-    // A given delay the scan cannot confirm (the peak pushed outside ±span) is written as given.
-    ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--span-ps", "30000", "--pairs", "1:2,1:3", "--delay", "4=1300", "--force", "-q"]));
+    // A given delay the scan cannot confirm (the peak pushed outside ±H) is written as given.
+    ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--half-range-ps", "30000", "--pairs", "1:2,1:3", "--delay", "4=1300", "--force", "-q"]));
     let file = delays_toml(d, "delays.toml");
     assert_eq!(file["delays_ps"]["4"].as_integer(), Some(1300));
     assert!(file["obtained"]["4"].as_str().unwrap().starts_with("given with --delay"));
@@ -119,7 +119,7 @@ fn a_given_delay_is_kept_for_a_channel_the_scan_did_not_find() {
 fn count_sweep_and_chsh_refuse_a_channel_without_a_delay() {
     let (dir, _) = simulated_run();
     let d = dir.path();
-    ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--span-ps", "30000", "-q"]));
+    ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--half-range-ps", "30000", "-q"]));
     let parts = ["delays.toml", "no delay for channel 2 (no peak", "channel 3 (no peak", "channel 4 (no peak", "--delay 2=PS"];
     refused(&run(d, &["count", "run/ab.sieve", "--delays", "delays.toml", "-w", "500", "-q"]), &parts);
     refused(&run(d, &["count", "run/ab.sieve", "--delays", "delays.toml", "-w", "500", "--pairs", "1:3", "-q"]), &["no delay for channel 3"]);
@@ -167,7 +167,7 @@ fn negative_and_zero_ps_values_get_one_clear_message() {
     let joined = refused(&run(d, &["count", "run/ab.sieve", "--window-ps=-5"]), &[want]);
     assert_eq!(spaced, joined);
     refused(&run(d, &["count", "run/ab.sieve", "-w", "0"]), &[want]);
-    refused(&run(d, &["scan", "run/ab.sieve", "--span-ps", "-100"]), &[want]);
+    refused(&run(d, &["scan", "run/ab.sieve", "--half-range-ps", "-100"]), &[want]);
     refused(&run(d, &["scan", "run/ab.sieve", "--bin-ps", "0"]), &[want]);
     refused(&run(d, &["sweep", "run/ab.sieve", "--windows-ps", "100,-3"]), &[want]);
     refused(&run(d, &["chsh", "run/run.toml", "-w", "-1"]), &[want]);

@@ -39,12 +39,12 @@ fn inputs() -> &'static Inputs {
     INPUTS.get_or_init(|| {
         let dir = tempfile::tempdir().unwrap();
         let d = |n: &str| dir.path().join(n).to_str().unwrap().to_string();
-        run_ok(&["-q", "simulate", "--format", "records", "--series", "0", "--pair-rate-hz", "5e6", "--duration-s", "2.5", "--seed", "11", "--out", &d("rec")]);
+        run_ok(&["-q", "simulate", "--format", "records", "--series", "0", "--pair-rate-hz", "5e6", "--duration-s", "2.5", "--seed", "11", "-o", &d("rec")]);
         let records = dir.path().join("rec/ab0.records");
         let events = std::fs::metadata(&records).unwrap().len() / 16;
         assert!(events > STREAM_CHUNK_EVENTS as u64, "{events} records: the stream pass must see several chunks");
         run_ok(&["-q", "import", records.to_str().unwrap(), "--layout", LAYOUT, "-o", &d("ab0.sieve")]);
-        run_ok(&["-q", "simulate", "--seed", "5", "--out", &d("chsh")]);
+        run_ok(&["-q", "simulate", "--seed", "5", "-o", &d("chsh")]);
         Inputs { records, container: dir.path().join("ab0.sieve"), manifest: dir.path().join("chsh/run.toml"), dir }
     })
 }

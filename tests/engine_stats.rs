@@ -99,7 +99,7 @@ fn results_are_identical_for_1_2_and_16_threads() {
     let run = || {
         let block = engine::count_block("x", &tags, &cfg).unwrap();
         let sweep = engine::sweep_block(&tags, &cfg, &[100, 200, 500, 1000, 2000], Criterion::MaxNetSignificance).unwrap();
-        let scan = engine::scan_block(&tags, &ScanConfig { pairs: vec![], delays: Delays::default(), span_ps: 100_000, bin_ps: 50 }).unwrap();
+        let scan = engine::scan_block(&tags, &ScanConfig { pairs: vec![], delays: Delays::default(), half_range_ps: 100_000, bin_ps: 50 }).unwrap();
         (block, sweep, scan)
     };
     let results: Vec<_> = [1usize, 2, 16]

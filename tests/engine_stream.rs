@@ -63,7 +63,7 @@ proptest! {
         let (_, _, ss) = sweep::sweep_stream(chunks.clone().into_iter().map(Ok), &cfg, &windows, Criterion::MaxNetSignificance).unwrap();
         prop_assert_eq!(format!("{sw:?}"), format!("{ss:?}"));
 
-        let scfg = ScanConfig { pairs: vec![], delays, span_ps: 400, bin_ps: 7 };
+        let scfg = ScanConfig { pairs: vec![], delays, half_range_ps: 400, bin_ps: 7 };
         let hw = engine::scan_block(&tags, &scfg).unwrap();
         let (_, _, hs) = scan::scan_stream(chunks.into_iter().map(Ok), &scfg).unwrap();
         prop_assert_eq!(format!("{hw:?}"), format!("{hs:?}"));

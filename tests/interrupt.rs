@@ -35,7 +35,7 @@ fn inputs() -> &'static Inputs {
         let dir = tempfile::tempdir().unwrap();
         let run = dir.path().join("run");
         let st = tagsieve()
-            .args(["--quiet", "simulate", "--pair-rate-hz", "5e6", "--duration-s", "2", "--out"])
+            .args(["--quiet", "simulate", "--pair-rate-hz", "5e6", "--duration-s", "2", "-o"])
             .arg(&run)
             .stdout(Stdio::null())
             .status()
@@ -222,14 +222,14 @@ fn import_interrupted_while_converting() {
 fn simulate_interrupted_between_blocks_leaves_no_block() {
     let out = tempfile::tempdir().unwrap();
     let run = keep(&out.path().join("sim"));
-    let args = ["--quiet", "simulate", "--pair-rate-hz", "1e6", "--duration-s", "1", "--out", s(run)];
+    let args = ["--quiet", "simulate", "--pair-rate-hz", "1e6", "--duration-s", "1", "-o", s(run)];
     check_command(&args, |_| Moment::SecondFile(run), run, &["ab.sieve", "abp.sieve", "apb.sieve", "apbp.sieve", "run.toml"]);
 }
 
 /// A large delay histogram (2·10^6 bins of 1 ps) takes long enough to write that the
 /// signal lands inside the HDF5 library.
 fn big_scan(h5: &Path) -> Vec<String> {
-    let args = ["--quiet", "scan", s(block("ab")), "--pairs", "1:3", "--delay", "3=41250", "--span-ps", "1000000", "--bin-ps", "1", "-o", s(h5)];
+    let args = ["--quiet", "scan", s(block("ab")), "--pairs", "1:3", "--delay", "3=41250", "--half-range-ps", "1000000", "--bin-ps", "1", "-o", s(h5)];
     args.iter().map(|a| a.to_string()).collect()
 }
 

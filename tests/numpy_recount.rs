@@ -8,7 +8,7 @@ mod common;
 fn simulated_run_counts_agree_exactly_with_numpy() {
     let d = tempfile::tempdir().unwrap();
     let out = common::tagsieve()
-        .args(["simulate", "--quiet", "--format", "arrays", "--duration-s", "0.5", "--seed", "21", "--out"])
+        .args(["simulate", "--quiet", "--format", "arrays", "--duration-s", "0.5", "--seed", "21", "-o"])
         .arg(d.path())
         .output()
         .unwrap();

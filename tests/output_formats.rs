@@ -46,7 +46,7 @@ fn sample_blocks() -> Vec<BlockTables> {
         delays_ps: vec![(1, 0), (7, -1_234_567)],
         window_ps: Some(1001),
         coincidences: vec![row(1, 7, 1001, 4242, car)],
-        scans: vec![ScanResult { a: 1, b: 7, rel_delay_ps: -1_234_567, span_ps: 500_000, bin_ps: 100, counts: counts.clone(), peak: Some(peak) }],
+        scans: vec![ScanResult { a: 1, b: 7, rel_delay_ps: -1_234_567, half_range_ps: 500_000, bin_ps: 100, counts: counts.clone(), peak: Some(peak) }],
         sweeps: vec![SweepTable {
             a: 1,
             b: 7,

@@ -10,11 +10,11 @@ use tagsieve::output::plot;
 
 /// A delay histogram: Gaussian peak (σ = 60 ps) at +120 ps over a flat 40-count background.
 fn scan() -> ScanResult {
-    let (span_ps, bin_ps) = (2000u64, 20u64);
-    let n = (2 * span_ps / bin_ps) as usize;
+    let (half_range_ps, bin_ps) = (2000u64, 20u64);
+    let n = (2 * half_range_ps / bin_ps) as usize;
     let counts = (0..n)
         .map(|i| {
-            let centre = -(span_ps as f64) + (i as f64 + 0.5) * bin_ps as f64;
+            let centre = -(half_range_ps as f64) + (i as f64 + 0.5) * bin_ps as f64;
             (40.0 + 5000.0 * (-(centre - 120.0).powi(2) / (2.0 * 60.0f64.powi(2))).exp()).round() as u64
         })
         .collect();
@@ -26,7 +26,7 @@ fn scan() -> ScanResult {
         background: 40.0,
         net_counts: 5000.0 * 60.0 * (2.0 * std::f64::consts::PI).sqrt() / bin_ps as f64,
     };
-    ScanResult { a: 1, b: 3, rel_delay_ps: 0, span_ps, bin_ps, counts, peak: Some(peak) }
+    ScanResult { a: 1, b: 3, rel_delay_ps: 0, half_range_ps, bin_ps, counts, peak: Some(peak) }
 }
 
 fn sweep() -> SweepTable {
@@ -171,7 +171,7 @@ fn sweep_plots() {
 #[test]
 fn correlation_plots() {
     let r = report();
-    check_both("chsh", "CHSH correlations: S = ", |p| plot::plot_correlations(&r, Some(0.92), p, true).unwrap());
+    check_both("chsh", "CHSH correlations: S = ", |p| plot::plot_correlations(&r, Some(plot::ModelLine { visibility: 0.92, source: "simulated" }), p, true).unwrap());
     check_both("chsh_plain", "CHSH correlations: S = ", |p| plot::plot_correlations(&r, None, p, true).unwrap());
 }
 

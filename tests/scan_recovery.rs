@@ -9,7 +9,7 @@ fn scan_recovers_delays_and_jitter_width() {
     let detectors = simulate::scenario_detectors();
     let tags = simulate::simulate_block(&SourceModel::scenario(), &detectors, Setting { alpha_deg: 0.0, beta_deg: 0.0 }, 4_000_000_000_000, 17).unwrap();
     let bin_ps = 10;
-    let cfg = ScanConfig { pairs: vec![(1, 3), (2, 4)], delays: Default::default(), span_ps: 60_000, bin_ps };
+    let cfg = ScanConfig { pairs: vec![(1, 3), (2, 4)], delays: Default::default(), half_range_ps: 60_000, bin_ps };
     let scans = engine::scan_block(&tags, &cfg).unwrap();
     for s in &scans {
         let (da, db) = (&detectors[s.a as usize - 1], &detectors[s.b as usize - 1]);

@@ -12,7 +12,7 @@ use tagsieve::simulate::{block_seed, scenario_detectors, simulate_block, SourceM
 
 fn simulate(dir: &Path, extra: &[&str]) -> std::process::Output {
     let mut c = common::tagsieve();
-    c.args(["--quiet", "simulate", "--out"]).arg(dir).args(["--duration-s", "0.05", "--seed", "9"]).args(extra);
+    c.args(["--quiet", "simulate", "-o"]).arg(dir).args(["--duration-s", "0.05", "--seed", "9"]).args(extra);
     c.output().unwrap()
 }
 
@@ -70,7 +70,7 @@ fn every_format_writes_what_the_manifest_lists_and_reads_back() {
 fn json_summary_counts_match_the_array_files() {
     let d = tempfile::tempdir().unwrap();
     let mut c = common::tagsieve();
-    c.args(["--json", "simulate", "--format", "arrays", "--duration-s", "0.05", "--out"]).arg(d.path());
+    c.args(["--json", "simulate", "--format", "arrays", "--duration-s", "0.05", "-o"]).arg(d.path());
     let out = c.output().unwrap();
     assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();

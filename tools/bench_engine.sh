@@ -31,7 +31,7 @@ A=$BENCH_DIR/run/ab0_ch1.u64
 B=$BENCH_DIR/run/ab0_ch3.u64
 if [[ ! -s $A || ! -s $B ]]; then
     echo "simulating the input into $BENCH_DIR/run ..." >&2
-    "$TS" simulate --out "$BENCH_DIR/run" --force -q --threads "$THREADS" --format arrays \
+    "$TS" simulate -o "$BENCH_DIR/run" --force -q --threads "$THREADS" --format arrays \
         --series 22.5 --pair-rate-hz 20000000 --duration-s 40 \
         --detector 2:efficiency=0,dark_rate_hz=0 --detector 4:efficiency=0,dark_rate_hz=0
 fi
@@ -89,7 +89,7 @@ T_COUNT=$(best_of "$REPS" "${COUNT[@]}")
 TS_PAIRS=$("$PYTHON" -c 'import json,sys; r=json.load(open(sys.argv[1]))["blocks"][0]["coincidences"][0]; print(r["coincidences"], r["heralded"])' "$OUTFILE")
 OFFSETS=$("$PYTHON" -c 'import json,sys; r=json.load(open(sys.argv[1]))["blocks"][0]["coincidences"][0]; print(",".join(map(str, r["acc_offsets_ps"])))' "$OUTFILE")
 TS_OFF=$("$PYTHON" -c 'import json,sys; r=json.load(open(sys.argv[1]))["blocks"][0]["coincidences"][0]; print(",".join(map(str, r["acc_offset_counts"])))' "$OUTFILE")
-SCAN=("$TS" scan -q --json --threads "$THREADS" --pairs 1:3 --delay 3=$DELTA_PS --span-ps $SPAN_PS --bin-ps $BIN_PS "1=$A" "3=$B")
+SCAN=("$TS" scan -q --json --threads "$THREADS" --pairs 1:3 --delay 3=$DELTA_PS --half-range-ps $SPAN_PS --bin-ps $BIN_PS "1=$A" "3=$B")
 T_SCAN=$(best_of "$REPS" "${SCAN[@]}")
 TS_HIST=$("$PYTHON" -c 'import json,sys; d=json.load(open(sys.argv[1])); print(",".join(map(str, d["scans"][0]["counts"])))' "$OUTFILE")
 
@@ -102,7 +102,7 @@ NP_PAIRS=$(sed -n 's/^pairs=\([0-9]*\) heralded=\([0-9]*\).*/\1 \2/p' "$OUTFILE"
 # The same peak window plus the ten off-peak windows `count` measured (the same work).
 T_NP_COUNT_OFF=$(best_of 1 numpy tools/numpy_count.py "1=$A" "3=$B" --window-ps $WINDOW_PS --delta-ps $DELTA_PS --offsets-ps="$OFFSETS" "${PREFIX_ARGS[@]}")
 NP_OFF=$(sed -n 's/.* offpeak=\([0-9,]*\) .*/\1/p' "$OUTFILE")
-T_NP_SCAN=$(best_of 1 numpy tools/numpy_scan.py "1=$A" "3=$B" --span-ps $SPAN_PS --bin-ps $BIN_PS --delta-ps $DELTA_PS "${PREFIX_ARGS[@]}")
+T_NP_SCAN=$(best_of 1 numpy tools/numpy_scan.py "1=$A" "3=$B" --half-range-ps $SPAN_PS --bin-ps $BIN_PS --delta-ps $DELTA_PS "${PREFIX_ARGS[@]}")
 NP_HIST=$(sed -n 2p "$OUTFILE")
 if (( NUMPY_PREFIX > 0 )); then
     SCALE=$(echo "$A_EVENTS / $NUMPY_PREFIX" | bc -l)

@@ -6,4 +6,4 @@ cd "$(dirname "$0")/.."
 tools/setup.sh
 echo "demo: building tagsieve (release)" >&2
 cargo build --release --quiet
-exec "${CARGO_TARGET_DIR:-target}/release/tagsieve" demo --out "${1:-tagsieve-demo}"
+exec "${CARGO_TARGET_DIR:-target}/release/tagsieve" demo -o "${1:-tagsieve-demo}"

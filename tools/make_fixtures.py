@@ -43,7 +43,6 @@ def stats(channel, name, source, t):
         "min_ps": int(t.min()),
         "max_ps": int(t.max()),
         "span_ps": span,
-        "rate_hz": (len(t) - 1) / (span * 1e-12) if span > 0 and len(t) > 1 else None,
         "min_gap_ps": int(pos.min()) if len(pos) else None,
         "out_of_order_steps": int((d < 0).sum()),
         "duplicate_timestamps": int((d == 0).sum()),
@@ -54,20 +53,27 @@ def totals(chans):
     lo = min(c["min_ps"] for c in chans)
     hi = max(c["max_ps"] for c in chans)
     n = sum(c["events"] for c in chans)
+    # Rates (README, "Rates"): events / live time, one live time for all channels given
+    # together: from the earliest to the latest tag of any channel, + 1 ps.
+    live = hi - lo + 1
+    for c in chans:
+        c["rate_hz"] = c["events"] / (live * 1e-12)
     return {
         "channels": len(chans),
         "events": n,
         "min_ps": lo,
         "max_ps": hi,
         "span_ps": hi - lo,
-        "rate_hz": (n - 1) / ((hi - lo) * 1e-12) if hi > lo and n > 1 else None,
+        "live_time_ps": live,
+        "rate_hz": n / (live * 1e-12),
         "out_of_order_steps": sum(c["out_of_order_steps"] for c in chans),
         "duplicate_timestamps": sum(c["duplicate_timestamps"] for c in chans),
     }
 
 
 def expected(out, name, args, layout, chans, exit_code):
-    doc = {"args": args, "layout": layout, "exit_code": exit_code, "channels": chans, "totals": totals(chans)}
+    tot = totals(chans)  # sets each channel's rate_hz
+    doc = {"args": args, "layout": layout, "exit_code": exit_code, "channels": chans, "totals": tot}
     with open(os.path.join(out, name + ".expected.json"), "w") as f:
         json.dump(doc, f, indent=1, sort_keys=True)
         f.write("\n")

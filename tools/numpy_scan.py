@@ -39,12 +39,12 @@ def histogram(a, b, delta_ps, span_ps, bin_ps, chunk):
 def main():
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     common_args(p)
-    p.add_argument("--span-ps", type=int, required=True, help="half-range of the histogram, ps")
+    p.add_argument("--half-range-ps", type=int, required=True, help="half-range of the histogram, ps")
     p.add_argument("--bin-ps", type=int, required=True, help="bin width, ps")
     args = p.parse_args()
     t0 = time.perf_counter()
     a, b = open_pair(args)
-    hist = histogram(a, b, args.delta_ps, args.span_ps, args.bin_ps, args.chunk_events)
+    hist = histogram(a, b, args.delta_ps, args.half_range_ps, args.bin_ps, args.chunk_events)
     dt = time.perf_counter() - t0
     print(f"total={int(hist.sum())} a_events={len(a)} seconds={dt:.3f}")
     print(",".join(str(int(c)) for c in hist))

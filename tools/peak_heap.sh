@@ -23,7 +23,7 @@ FREE_GB=$(df --output=avail -BG "$HEAP_DIR" | tail -1 | tr -dc 0-9)
 trap 'rm -rf "$HEAP_DIR/run"' EXIT
 
 # One block, four channels, 16-byte records: ≈ 122 MB/s of run at 20 M pairs/s → 38 s ≈ 4.3 GB.
-"$TS" simulate --out "$HEAP_DIR/run" --force -q --format records --series 22.5 \
+"$TS" simulate -o "$HEAP_DIR/run" --force -q --format records --series 22.5 \
     --pair-rate-hz 20000000 --duration-s 38
 IN=$HEAP_DIR/run/ab0.records
 LAYOUT=$(sed -n 's/^layout = "\(.*\)"$/\1/p' "$HEAP_DIR/run/run.toml")

@@ -90,6 +90,24 @@ pub struct ChshSet {
     pub max_abs: usize,
 }
 
+impl ChshVariant {
+    /// Whether |S| exceeds the local bound 2 at all (however weakly).
+    pub fn violates_bound(&self) -> bool {
+        self.s.abs() > 2.0
+    }
+
+    /// The significance in words: "+3.2 σ beyond the local bound 2, p = 6.9e-4", or, for
+    /// |S| ≤ 2, plainly that there is no violation (a negative σ and a p-value near 1 say
+    /// nothing a reader needs).
+    pub fn verdict(&self) -> String {
+        if !self.violates_bound() {
+            return "no violation: |S| ≤ 2 (the local bound)".to_string();
+        }
+        let p = if self.p_value > 0.0 { format!("= {:.3e}", self.p_value) } else { "< 1e-300".to_string() };
+        format!("{:+.1} σ beyond the local bound 2, p {p}", self.violation_sigma)
+    }
+}
+
 impl ChshSet {
     pub fn primary(&self) -> &ChshVariant {
         &self.variants[PRIMARY_MINUS_TERM]
@@ -278,6 +296,25 @@ pub fn chsh_set(e: [Estimate; 4]) -> ChshSet {
     ChshSet { variants, max_abs }
 }
 
+/// The visibility V of the model E(α, β) = V·cos 2(α − β) (module doc) that fits the raw
+/// correlations best: weighted least squares through the origin, V = Σ wᵢcᵢEᵢ / Σ wᵢcᵢ² with
+/// cᵢ = cos 2(αᵢ − βᵢ) and wᵢ = 1/σᵢ², σ_V = 1/√(Σ wᵢcᵢ²) (one-parameter linear fit: Bevington
+/// and Robinson, Data Reduction and Error Analysis, 3rd ed., ch. 6; from memory). `None` when
+/// no pair has a usable σ and a non-zero cᵢ. Drawn as the model line of the CHSH plot.
+pub fn model_visibility(report: &ChshReport) -> Option<Estimate> {
+    let (mut num, mut den) = (0.0, 0.0);
+    for p in &report.pairs {
+        let c = (2.0 * (p.angle_a_deg - p.angle_b_deg).to_radians()).cos();
+        if !(p.raw.sigma > 0.0 && p.raw.sigma.is_finite()) {
+            continue;
+        }
+        let w = 1.0 / (p.raw.sigma * p.raw.sigma);
+        num += w * c * p.raw.e;
+        den += w * c * c;
+    }
+    (den > 0.0).then(|| Estimate { value: num / den, sigma: 1.0 / den.sqrt() })
+}
+
 /// Evaluate CHSH from four setting pairs labelled (a,b), (a,b'), (a',b), (a',b') in any order.
 pub fn evaluate(blocks: &[SettingCounts]) -> Result<ChshReport> {
     for b in blocks {
@@ -330,6 +367,37 @@ mod tests {
         let (same, diff, n): (f64, f64, f64) = (850.0, 150.0, 1000.0);
         assert!((c.e - 0.7).abs() < 1e-15);
         assert!((c.sigma - (4.0 * same * diff / (n * n * n)).sqrt()).abs() < 1e-15);
+    }
+
+    #[test]
+    fn model_visibility_is_the_weighted_fit_through_the_origin() {
+        // Pairs at α − β = 0° (c = +1) with E = +0.7, at 90° (c = −1) with E = −0.7 and the
+        // same σ, and two at 45° (c = 0, no weight in the fit): the least-squares slope
+        // through the origin is then (0.7 + 0.7)/2 = 0.7 with σ_V = σ_E/√2 (two equal-weight
+        // points; Bevington and Robinson ch. 6, from memory). σ_E: the closed form above.
+        let mut b = [
+            block("a", "b", [400, 100, 50, 450]),
+            block("a", "b'", [50, 450, 400, 100]),
+            block("a'", "b", [250, 250, 250, 250]),
+            block("a'", "b'", [250, 250, 250, 250]),
+        ];
+        for (x, beta) in b.iter_mut().zip([0.0, 90.0, 45.0, -45.0]) {
+            x.angle_b_deg = beta;
+        }
+        let r = evaluate(&b).unwrap();
+        let v = model_visibility(&r).unwrap();
+        let sigma_e = (4.0 * 850.0 * 150.0 / 1e9_f64).sqrt();
+        assert!((v.value - 0.7).abs() < 1e-12, "{v:?}");
+        assert!((v.sigma - sigma_e / 2f64.sqrt()).abs() < 1e-12, "{v:?}");
+    }
+
+    #[test]
+    fn verdict_says_plainly_when_there_is_no_violation() {
+        // |S| ≤ 2 is the local bound (CHSH 1969): below it no σ or p-value is quoted.
+        let below = ChshVariant { minus_term: 1, s: 1.2, sigma: 0.0046, violation_sigma: -174.2, p_value: 1.0 };
+        assert_eq!(below.verdict(), "no violation: |S| ≤ 2 (the local bound)");
+        let above = ChshVariant { minus_term: 1, s: -2.3, sigma: 0.1, violation_sigma: 3.0, p_value: 1.35e-3 };
+        assert!(above.verdict().starts_with("+3.0 σ beyond the local bound 2, p = 1.350e-3"), "{}", above.verdict());
     }
 
     #[test]

@@ -6,7 +6,8 @@ use super::common::{self, AccidentalArgs, OutputArgs};
 use super::Global;
 use std::path::PathBuf;
 use tagsieve::analysis::bell3::Convention;
-use tagsieve::analysis::chsh::ChshReport;
+use tagsieve::analysis::chsh::{model_visibility, ChshReport};
+use tagsieve::output::plot::ModelLine;
 use tagsieve::analysis::visibility::{fit_visibility, AnglePoint, VisibilityFit};
 use tagsieve::engine::{tables::BlockTables, CountConfig, Delays};
 use tagsieve::manifest::Manifest;
@@ -37,6 +38,8 @@ pub struct Args {
     /// Pass over the data: auto, whole or stream (see `count --help`).
     #[arg(long = "pass", default_value = "auto", value_name = "MODE")]
     pub pass: String,
+    #[command(flatten)]
+    pub read: super::ReadArgs,
     /// Sign convention for the three-setting form: `correlated` (E(a,a) = +1, as for
     /// (|HH⟩+|VV⟩)/√2; the form is applied to −E) or `anti-correlated` (singlet-type).
     #[arg(long, default_value = "correlated", value_name = "CONV")]
@@ -79,11 +82,14 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         "anti-correlated" => Convention::AntiCorrelated,
         o => return Err(Error::Usage(format!("--bell3-convention {o}: expected correlated or anti-correlated"))),
     };
-    let (blocks, files) = pipeline::count_run(&m, &cfg, g.read_options(), pipeline::PassMode::parse(&args.pass)?, g.quiet)?;
+    let (blocks, files) = pipeline::count_run(&m, &cfg, args.read.read_options(), pipeline::PassMode::parse(&args.pass)?, g.quiet)?;
     let outcome = analyse(&m, blocks, window_ps, conv)?;
     if let Some(p) = &args.plot {
         match &outcome.chsh {
-            Some(r) => tagsieve::output::plot::plot_correlations(r, None, p, true)?,
+            Some(r) => {
+                let model = model_visibility(r).map(|v| ModelLine { visibility: v.value, source: "fitted to E" });
+                tagsieve::output::plot::plot_correlations(r, model, p, true)?
+            }
             None => eprintln!("tagsieve: no CHSH settings in this run; {} not drawn", p.display()),
         }
     }
@@ -191,10 +197,7 @@ fn print(o: &ChshOutcome, g: &Global) {
                 (false, true) => " (largest |S|)",
                 _ => "",
             };
-            println!(
-                "  S = {:<38} {:<20} {:+.4} ± {:.4}  {:+.1} σ beyond 2, p {}{flag}",
-                v.formula, v.kind, v.variant.s, v.variant.sigma, v.variant.violation_sigma, p_text(v.variant.p_value)
-            );
+            println!("  S = {:<38} {:<20} {:+.4} ± {:.4}  {}{flag}", v.formula, v.kind, v.variant.s, v.variant.sigma, v.variant.verdict());
         }
         println!("  caution: {}", layout_analysis::CAUTION);
     }
@@ -212,11 +215,6 @@ fn print(o: &ChshOutcome, g: &Global) {
     }
 }
 
-/// "= 1.2e-5", or "< 1e-300" where the normal tail underflows.
-fn p_text(p: f64) -> String {
-    if p > 0.0 { format!("= {p:.3e}") } else { "< 1e-300".into() }
-}
-
 fn json(o: &ChshOutcome) -> serde_json::Value {
     let chsh = o.chsh.as_ref().map(|r| {
         serde_json::json!({
@@ -228,6 +226,7 @@ fn json(o: &ChshOutcome) -> serde_json::Value {
             "s_values": r.variant_rows().iter().map(|v| serde_json::json!({
                 "formula": v.formula, "kind": v.kind, "s": v.variant.s, "s_sigma": v.variant.sigma,
                 "violation_sigma": v.variant.violation_sigma, "p_value": v.variant.p_value,
+                "violates_bound": v.variant.violates_bound(),
                 "is_primary": v.is_primary, "is_max": v.is_max,
             })).collect::<Vec<_>>(),
             "caution": layout_analysis::CAUTION,

@@ -8,8 +8,8 @@ use tagsieve::{Channel, Error, Result};
 /// Input files of one block.
 #[derive(clap::Args, Debug, Clone)]
 pub struct InputArgs {
-    /// Input files: `CH=PATH` for a per-channel u64 array, a container file, or an
-    /// interleaved-record file (with --layout).
+    /// Inputs: CH=PATH or CH:NAME=PATH for a per-channel u64 array (ps), a container
+    /// file, or an interleaved-record file (needs --layout).
     #[arg(required = true, value_name = "INPUT")]
     pub inputs: Vec<String>,
     /// Record layout for interleaved-record inputs: a layout TOML file or a compact spec
@@ -20,6 +20,8 @@ pub struct InputArgs {
     /// everything else whole), `whole` or `stream`.
     #[arg(long = "pass", default_value = "auto", value_name = "MODE")]
     pub pass: String,
+    #[command(flatten)]
+    pub read: super::ReadArgs,
 }
 
 impl InputArgs {

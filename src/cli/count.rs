@@ -69,7 +69,7 @@ pub fn print_counts(blocks: &[BlockTables], g: &Global) {
         return;
     }
     for b in blocks {
-        println!("{}: span {}", b.label, b.span.map(|s| common::ps(s.duration_ps() as f64)).unwrap_or_else(|| "none (no events)".into()));
+        println!("{}: live time {}", b.label, b.span.map(|s| common::ps(s.duration_ps() as f64)).unwrap_or_else(|| "none (no events)".into()));
         println!("  {:>5} {:>12} {:>10}", "ch", "singles", "rate");
         for s in &b.singles {
             println!("  {:>5} {:>12} {:>10}", s.channel, fmt_count(s.events), tagsieve::units::fmt_rate_hz(s.rate_hz));

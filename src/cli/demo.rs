@@ -10,18 +10,28 @@ use tagsieve::Result;
 pub struct Args {
     /// Folder for the simulated run, the tables and the plots (created; files the demo
     /// writes there are replaced).
-    #[arg(long, default_value = "tagsieve-demo", value_name = "DIR")]
-    pub out: PathBuf,
+    #[arg(short = 'o', long = "output", default_value = "tagsieve-demo", value_name = "DIR")]
+    pub output: PathBuf,
+    /// Deprecated spelling of --output.
+    #[arg(long = "out", value_name = "DIR", hide = true, conflicts_with = "output")]
+    pub out: Option<PathBuf>,
     /// Random seed of the simulation (integer).
     #[arg(long, default_value_t = 2026, value_name = "N")]
     pub seed: u64,
     /// Length of each CHSH block, s.
     #[arg(long, default_value_t = 2.0, value_name = "S")]
-    pub block_s: f64,
+    pub duration_s: f64,
+    /// Deprecated spelling of --duration-s.
+    #[arg(long = "block-s", value_name = "S", hide = true, conflicts_with = "duration_s")]
+    pub block_s: Option<f64>,
+    #[command(flatten)]
+    pub threads: super::ThreadArgs,
 }
 
 pub fn run(args: Args, g: &Global) -> Result<()> {
-    let s = run_demo(&DemoConfig { out_dir: args.out.clone(), seed: args.seed, block_s: args.block_s, quiet: g.quiet || g.json })?;
+    let out_dir = super::deprecated(args.out.clone(), "--out", "-o/--output").unwrap_or_else(|| args.output.clone());
+    let duration_s = super::deprecated(args.block_s, "--block-s", "--duration-s").unwrap_or(args.duration_s);
+    let s = run_demo(&DemoConfig { out_dir, seed: args.seed, duration_s, quiet: g.quiet || g.json })?;
     if g.json {
         common::print_json(&serde_json::to_value(&s).unwrap_or_default());
         return Ok(());
@@ -37,7 +47,7 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     println!("window chosen by sweep (largest net/σ): {}", common::ps(s.window_ps as f64));
     let cars: Vec<String> = s.car.iter().map(|((a, b), c)| format!("{a}:{b} {c:.0}")).collect();
     println!("CAR in block ab: {}", cars.join(", "));
-    println!("S = {:.4} ± {:.4} (raw), {:+.1} σ above the local bound 2", s.s_raw.0, s.s_raw.1, s.violation_sigma);
+    println!("S = {:.4} ± {:.4} (raw), {}", s.s_raw.0, s.s_raw.1, s.verdict);
     if let Some((v, e)) = s.s_corrected {
         println!("S = {v:.4} ± {e:.4} (accidental-corrected)");
     }

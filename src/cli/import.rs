@@ -25,11 +25,13 @@ pub struct Args {
     /// Replace OUT if it exists (default: refuse).
     #[arg(long)]
     pub force: bool,
+    #[command(flatten)]
+    pub read: super::ReadArgs,
 }
 
 pub fn run(args: Args, g: &Global) -> Result<()> {
     let layout = args.layout.as_deref().map(RecordLayout::from_arg).transpose()?;
-    let sources = open_inputs(&args.inputs, layout.as_ref(), g.read_options())?;
+    let sources = open_inputs(&args.inputs, layout.as_ref(), args.read.read_options())?;
     // The header records the record layout's tick; per-channel arrays are 1 ps already.
     let tick = layout.as_ref().map_or(Tick { fs: 1000 }, |l| l.tick);
     let total: u64 = sources.iter().map(|s| s.event_count()).sum();

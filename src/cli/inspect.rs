@@ -11,8 +11,8 @@ use tagsieve::{Error, Result};
 
 #[derive(clap::Args, Debug)]
 pub struct Args {
-    /// Inputs: CH=PATH or CH:NAME=PATH for a per-channel u64 array (ps), a .sieve container,
-    /// or an interleaved-record file (needs --layout).
+    /// Inputs: CH=PATH or CH:NAME=PATH for a per-channel u64 array (ps), a container
+    /// file, or an interleaved-record file (needs --layout).
     #[arg(required = true, value_name = "INPUT")]
     pub inputs: Vec<String>,
     /// Layout of interleaved-record inputs: a TOML file or a spec such as
@@ -20,11 +20,13 @@ pub struct Args {
     /// tick in ps; default: none, so record files are refused).
     #[arg(long, value_name = "FILE|SPEC")]
     pub layout: Option<String>,
+    #[command(flatten)]
+    pub read: super::ReadArgs,
 }
 
 pub fn run(args: Args, g: &Global) -> Result<()> {
     let layout = args.layout.as_deref().map(RecordLayout::from_arg).transpose()?;
-    let opts = ReadOptions { lenient_order: true, ..g.read_options() };
+    let opts = ReadOptions { lenient_order: true, ..args.read.read_options() };
     let sources = open_inputs(&args.inputs, layout.as_ref(), opts)?;
     let total: u64 = sources.iter().map(|s| s.event_count()).sum();
     let progress = tagsieve::progress::Progress::items("inspect", total, g.quiet);

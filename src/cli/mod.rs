@@ -22,24 +22,47 @@ pub struct Global {
     /// Machine-readable JSON on stdout instead of tables.
     #[arg(long, global = true)]
     pub json: bool,
+}
+
+/// Worker threads, for the commands that run parallel work (every one but `completions`).
+#[derive(clap::Args, Debug, Clone)]
+pub struct ThreadArgs {
     /// Worker threads (count); 0 = one per core.
-    #[arg(long, global = true, default_value_t = 0, value_name = "N")]
+    #[arg(long, default_value_t = 0, value_name = "N")]
     pub threads: usize,
+}
+
+/// How input files are read, for the commands that read tag files (not `simulate`, `demo`
+/// or `completions`).
+#[derive(clap::Args, Debug, Clone)]
+pub struct ReadArgs {
+    #[command(flatten)]
+    pub threads: ThreadArgs,
     /// Read inputs with buffered I/O instead of memory maps (safer on files that may change).
-    #[arg(long, global = true)]
+    #[arg(long)]
     pub no_mmap: bool,
 }
 
-impl Global {
+impl ReadArgs {
     pub fn read_options(&self) -> tagsieve::read::ReadOptions {
         tagsieve::read::ReadOptions { mmap: !self.no_mmap, ..Default::default() }
     }
 }
 
-pub fn configure_threads(g: &Global) {
-    if g.threads > 0 {
-        let _ = rayon::ThreadPoolBuilder::new().num_threads(g.threads).build_global();
+/// Size the worker pool once, before any work starts (0 keeps one thread per core).
+pub fn configure_threads(threads: usize) {
+    if threads > 0 {
+        let _ = rayon::ThreadPoolBuilder::new().num_threads(threads).build_global();
     }
+}
+
+/// A deprecated spelling kept as a hidden alias: its value (if given) with a warning on
+/// stderr naming the spelling to use instead. clap refuses both spellings together.
+pub fn deprecated<T>(old_value: Option<T>, old_flag: &str, new_flag: &str) -> Option<T> {
+    if old_value.is_some() {
+        eprintln!("tagsieve: warning: {old_flag} is deprecated and will be removed; use {new_flag}");
+    }
+    old_value
 }
 
 /// Ctrl-C / SIGTERM: remove registered temporary outputs, then exit 130. SIGBUS from a
@@ -88,8 +111,8 @@ use tagsieve::read::TagSource;
 use tagsieve::Result;
 
 /// Open one block's inputs.
-pub fn open(input: &common::InputArgs, g: &Global) -> Result<Vec<Box<dyn TagSource>>> {
-    tagsieve::pipeline::open_block(&input.inputs, input.layout.as_deref(), g.read_options())
+pub fn open(input: &common::InputArgs, _g: &Global) -> Result<Vec<Box<dyn TagSource>>> {
+    tagsieve::pipeline::open_block(&input.inputs, input.layout.as_deref(), input.read.read_options())
 }
 
 /// Record each input's path, size and checksum.

@@ -13,16 +13,19 @@ pub struct Args {
     pub input: InputArgs,
     #[command(flatten)]
     pub pairs: PairArgs,
-    /// Half-range of the histogram, ps: Δ from −span to +span.
+    /// Half-range H of the histogram, ps: Δ from −H to +H.
     #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long, default_value_t = 100_000, value_name = "PS")]
-    pub span_ps: u64,
+    pub half_range_ps: u64,
+    /// Deprecated spelling of --half-range-ps ("span" is the acquisition span).
+    #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long = "span-ps", value_name = "PS", hide = true, conflicts_with = "half_range_ps")]
+    pub span_ps: Option<u64>,
     /// Bin width, ps.
     #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long, default_value_t = 20, value_name = "PS")]
     pub bin_ps: u64,
     /// Propose every other channel's delay relative to this channel and write them to
     /// --delays-out. A channel gets a delay only through a pair whose histogram has a peak:
     /// its highest bin stands ≥ 5 σ (Poisson σ of the median bin, the background) and
-    /// ≥ 10 counts above the background, within ±span. Channels without one are listed
+    /// ≥ 10 counts above the background, within ±H (--half-range-ps). Channels without one are listed
     /// with the reason and left out of the file; a --delay given for such a channel is
     /// written instead.
     #[arg(long, value_name = "CH")]
@@ -43,12 +46,19 @@ pub struct Args {
     pub out: OutputArgs,
 }
 
+impl Args {
+    /// --half-range-ps, or the value of its deprecated spelling --span-ps (with a warning).
+    fn half_range_ps(&self) -> u64 {
+        super::deprecated(self.span_ps, "--span-ps", "--half-range-ps").unwrap_or(self.half_range_ps)
+    }
+}
+
 pub fn run(args: Args, g: &Global) -> Result<()> {
     args.out.precheck()?;
     if args.reference.is_some() {
         common::precheck_output(&args.delays_out, args.out.force)?;
     }
-    let cfg = ScanConfig { pairs: args.pairs.pairs()?, delays: args.pairs.delays()?, span_ps: args.span_ps, bin_ps: args.bin_ps };
+    let cfg = ScanConfig { pairs: args.pairs.pairs()?, delays: args.pairs.delays()?, half_range_ps: args.half_range_ps(), bin_ps: args.bin_ps };
     let mode = args.input.mode()?;
     let sources = super::open(&args.input, g)?;
     if let (Some(r), Some(chans)) = (args.reference, pipeline::declared_channels(&sources)) {
@@ -74,7 +84,7 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     if let Some(out) = &args.out.output {
         let p = Provenance::new(common::command_line())
             .param("command", AttrValue::Str("scan".into()))
-            .param("span_ps", AttrValue::U64(cfg.span_ps))
+            .param("half_range_ps", AttrValue::U64(cfg.half_range_ps))
             .param("bin_ps", AttrValue::U64(cfg.bin_ps));
         let p = super::add_inputs(p, &sources)?;
         super::write_tables(std::slice::from_ref(&block), p, vec![], out, &args.out)?;

@@ -11,8 +11,11 @@ use tagsieve::{Error, Result};
 #[derive(clap::Args, Debug)]
 pub struct Args {
     /// Output directory (created if missing); gets the block files and run.toml.
-    #[arg(long, value_name = "DIR")]
-    pub out: std::path::PathBuf,
+    #[arg(short = 'o', long = "output", value_name = "DIR", required_unless_present = "out")]
+    pub output: Option<std::path::PathBuf>,
+    /// Deprecated spelling of --output.
+    #[arg(long = "out", value_name = "DIR", hide = true, conflicts_with = "output")]
+    pub out: Option<std::path::PathBuf>,
     /// Replace existing files in DIR.
     #[arg(long)]
     pub force: bool,
@@ -31,7 +34,7 @@ pub struct Args {
     /// Source visibility V (dimensionless, 0 to 1).
     #[arg(long, default_value_t = 0.95, value_name = "V")]
     pub visibility: f64,
-    /// Length of each block (seconds).
+    /// Length of each block, s.
     #[arg(long, default_value_t = 2.0, value_name = "S")]
     pub duration_s: f64,
     /// CHSH analyzer angles a,a',b,b' (degrees).
@@ -50,12 +53,23 @@ pub struct Args {
     /// channel) or records (16-byte interleaved records).
     #[arg(long, value_enum, default_value_t = FormatArg::Container)]
     pub format: FormatArg,
-    /// Coincidence window to record in run.toml (ps); default: none, chosen later by a sweep.
-    #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long, value_name = "PS")]
+    /// Coincidence window w to record in run.toml, ps; default: none, chosen later by a sweep.
+    #[arg(value_parser = super::common::positive_ps, allow_negative_numbers = true, long, short = 'w', value_name = "PS")]
     pub window_ps: Option<u64>,
     /// Leave the true cable delays out of run.toml (so they must be found with scan).
     #[arg(long)]
     pub omit_delays: bool,
+    #[command(flatten)]
+    pub threads: super::ThreadArgs,
+}
+
+impl Args {
+    /// The output directory, from --output or its deprecated spelling --out.
+    fn output_dir(&self) -> Result<std::path::PathBuf> {
+        super::deprecated(self.out.clone(), "--out", "-o/--output")
+            .or_else(|| self.output.clone())
+            .ok_or_else(|| Error::Usage("simulate: give the output directory with -o/--output DIR".into()))
+    }
 }
 
 #[derive(ValueEnum, Clone, Copy, Debug)]
@@ -81,7 +95,7 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     let cfg = config(&args)?;
     let total_ms = (args.duration_s * 1e3).floor().max(0.0) as u64 * cfg.blocks.len() as u64;
     let progress = Progress::items("simulate ms", total_ms, g.quiet);
-    let summary = simulate::write_run(&cfg, &args.out, args.force, &progress)?;
+    let summary = simulate::write_run(&cfg, &args.output_dir()?, args.force, &progress)?;
     if g.json {
         let text = serde_json::to_string_pretty(&summary).map_err(|e| Error::Usage(format!("simulate: JSON summary: {e}")))?;
         println!("{text}");

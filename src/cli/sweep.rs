@@ -100,11 +100,13 @@ fn print_sweep(block: &BlockTables, g: &Global) {
     }
     for s in &block.sweeps {
         println!("pair {}:{}  (δ = {}; recommended window {} by {})", s.a, s.b, common::ps(s.rel_delay_ps as f64), common::ps(s.recommended_window_ps as f64), s.criterion);
-        println!("  {:>10} {:>12} {:>12} {:>12} {:>6} {:>21} {:>8} {:>8}", "window", "coinc", "acc(analyt)", "acc(meas)", "Δ/σ", "net ± σ", "net/σ", "CAR");
+        // "agreement σ": |acc(analyt) − acc(meas)| over their combined σ (acc_agreement_sigma);
+        // not Δ, which is the arrival-time difference everywhere else.
+        println!("  {:>10} {:>12} {:>12} {:>12} {:>11} {:>21} {:>8} {:>8}", "window", "coinc", "acc(analyt)", "acc(meas)", "agreement σ", "net ± σ", "net/σ", "CAR");
         for r in &s.rows {
             let mark = if r.window_ps == s.recommended_window_ps { " <" } else { "" };
             println!(
-                "  {:>10} {:>12} {:>12} {:>12} {:>6} {:>21} {:>8.1} {:>8.1}{mark}",
+                "  {:>10} {:>12} {:>12} {:>12} {:>11} {:>21} {:>8.1} {:>8.1}{mark}",
                 common::ps(r.window_ps as f64),
                 r.coincidences,
                 common::value(r.acc_analytic.value),

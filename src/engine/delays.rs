@@ -109,7 +109,7 @@ impl Delays {
             .collect();
         Err(Error::Usage(format!(
             "{}: no delay for {}, and no --delay flag gives one; expected a delay for every channel of the pairs counted. \
-             Rescan (e.g. with a wider --span-ps) or give it with --delay {first}=PS",
+             Rescan (e.g. with a wider --half-range-ps) or give it with --delay {first}=PS",
             file.display(),
             each.join(", ")
         )))

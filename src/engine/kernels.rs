@@ -158,41 +158,41 @@ fn count_scalar(a: &[u64], b: &[u64], shift_ps: i64, h: i64, start: usize) -> Wi
     WindowCount { pairs, heralded }
 }
 
-/// Add to `hist` the Δ = b − a − shift of every pair with −span ≤ Δ < span, in bins of
-/// `bin_ps` starting at −span (bin i covers [−span + i·bin, −span + (i+1)·bin)).
-pub fn histogram(a: &[u64], b: &[u64], shift_ps: i64, span_ps: u64, bin_ps: u64, hist: &mut [u64]) {
-    histogram_on(lanes::isa(), a, b, shift_ps, span_ps, bin_ps, hist)
+/// Add to `hist` the Δ = b − a − shift of every pair with −half ≤ Δ < half, in bins of
+/// `bin_ps` starting at −half (bin i covers [−half + i·bin, −half + (i+1)·bin)).
+pub fn histogram(a: &[u64], b: &[u64], shift_ps: i64, half_range_ps: u64, bin_ps: u64, hist: &mut [u64]) {
+    histogram_on(lanes::isa(), a, b, shift_ps, half_range_ps, bin_ps, hist)
 }
 
 /// [`histogram`] with the lanes' instruction set chosen (tests compare them).
-pub fn histogram_on(isa: lanes::Isa, a: &[u64], b: &[u64], shift_ps: i64, span_ps: u64, bin_ps: u64, hist: &mut [u64]) {
-    let span = span_ps as i64;
-    let n_fast = fast_prefix(a, b, shift_ps + span);
-    let mut g = [Group::histogram(shift_ps, span, bin_ps, hist.len())];
+pub fn histogram_on(isa: lanes::Isa, a: &[u64], b: &[u64], shift_ps: i64, half_range_ps: u64, bin_ps: u64, hist: &mut [u64]) {
+    let half = half_range_ps as i64;
+    let n_fast = fast_prefix(a, b, shift_ps + half);
+    let mut g = [Group::histogram(shift_ps, half, bin_ps, hist.len())];
     lanes::count_groups_on(isa, &a[..n_fast], b, &mut g);
     for (h, c) in hist.iter_mut().zip(&g[0].hist.as_ref().expect("a histogram group").counts) {
         *h += c;
     }
     let Some(&first) = a.get(n_fast) else { return };
-    let mut lo = lower_bound(b, first as i64 + shift_ps - span);
+    let mut lo = lower_bound(b, first as i64 + shift_ps - half);
     for &x in &a[n_fast..] {
         let base = x as i64 + shift_ps;
-        while lo < b.len() && (b[lo] as i64) < base - span {
+        while lo < b.len() && (b[lo] as i64) < base - half {
             lo += 1;
         }
-        add_pairs(&b[lo..], base, span, bin_ps, hist);
+        add_pairs(&b[lo..], base, half, bin_ps, hist);
     }
 }
 
-/// Bin the Δ = b − base of the leading `b` with Δ < span (all have Δ ≥ −span).
+/// Bin the Δ = b − base of the leading `b` with Δ < half (all have Δ ≥ −half).
 #[inline(always)]
-fn add_pairs(b: &[u64], base: i64, span: i64, bin_ps: u64, hist: &mut [u64]) {
+fn add_pairs(b: &[u64], base: i64, half: i64, bin_ps: u64, hist: &mut [u64]) {
     for &v in b {
         let d = v as i64 - base;
-        if d >= span {
+        if d >= half {
             break;
         }
-        let bin = ((d + span) as u64 / bin_ps) as usize;
+        let bin = ((d + half) as u64 / bin_ps) as usize;
         if bin < hist.len() {
             hist[bin] += 1;
         }

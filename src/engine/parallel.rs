@@ -128,21 +128,21 @@ pub fn count_windows_checked(a: &[u64], b: &[u64], shifts_ps: &[i64], half_ps: u
     })
 }
 
-/// Delay histogram over [−span, span) in bins of `bin_ps`.
-pub fn histogram(a: &[u64], b: &[u64], shift_ps: i64, span_ps: u64, bin_ps: u64) -> Vec<u64> {
-    histogram_chunked(a, b, shift_ps, span_ps, bin_ps, CHUNK_EVENTS)
+/// Delay histogram over [−half_range, half_range) in bins of `bin_ps`.
+pub fn histogram(a: &[u64], b: &[u64], shift_ps: i64, half_range_ps: u64, bin_ps: u64) -> Vec<u64> {
+    histogram_chunked(a, b, shift_ps, half_range_ps, bin_ps, CHUNK_EVENTS)
 }
 
 /// [`histogram`] with a chosen chunk length.
-pub fn histogram_chunked(a: &[u64], b: &[u64], shift_ps: i64, span_ps: u64, bin_ps: u64, chunk_events: usize) -> Vec<u64> {
-    unchecked_ok(histogram_checked(a, b, shift_ps, span_ps, bin_ps, Unchecked::default(), chunk_events))
+pub fn histogram_chunked(a: &[u64], b: &[u64], shift_ps: i64, half_range_ps: u64, bin_ps: u64, chunk_events: usize) -> Vec<u64> {
+    unchecked_ok(histogram_checked(a, b, shift_ps, half_range_ps, bin_ps, Unchecked::default(), chunk_events))
 }
 
 /// [`histogram_chunked`], checking the order of the inputs marked in `unchecked` on the way.
-pub fn histogram_checked(a: &[u64], b: &[u64], shift_ps: i64, span_ps: u64, bin_ps: u64, unchecked: Unchecked, chunk_events: usize) -> Result<Vec<u64>, Disorder> {
-    let nbins = (2 * span_ps).div_ceil(bin_ps) as usize;
-    let reach = (shift_ps - span_ps as i64, shift_ps + span_ps as i64);
-    sum_vectors(a, b, reach, unchecked, nbins, chunk_events, |chunk, b, acc| kernels::histogram(chunk, b, shift_ps, span_ps, bin_ps, acc))
+pub fn histogram_checked(a: &[u64], b: &[u64], shift_ps: i64, half_range_ps: u64, bin_ps: u64, unchecked: Unchecked, chunk_events: usize) -> Result<Vec<u64>, Disorder> {
+    let nbins = (2 * half_range_ps).div_ceil(bin_ps) as usize;
+    let reach = (shift_ps - half_range_ps as i64, shift_ps + half_range_ps as i64);
+    sum_vectors(a, b, reach, unchecked, nbins, chunk_events, |chunk, b, acc| kernels::histogram(chunk, b, shift_ps, half_range_ps, bin_ps, acc))
 }
 
 /// Window profile (see [`kernels::profile`]): pairs and nearest-partner counts by |Δ − c|,

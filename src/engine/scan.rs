@@ -13,8 +13,8 @@ use crate::{Channel, ChannelTags, Error, Result};
 pub struct ScanConfig {
     pub pairs: Vec<(Channel, Channel)>,
     pub delays: Delays,
-    /// Δ from −span to +span, ps.
-    pub span_ps: u64,
+    /// Half-range of the histogram: Δ from −half_range_ps to +half_range_ps, ps.
+    pub half_range_ps: u64,
     pub bin_ps: u64,
 }
 
@@ -42,26 +42,26 @@ where
 }
 
 fn check_scan(cfg: &ScanConfig) -> Result<PairTask> {
-    if cfg.span_ps == 0 || cfg.bin_ps == 0 {
-        return Err(Error::Usage(format!("scan: span {} ps and bin {} ps must both be > 0", cfg.span_ps, cfg.bin_ps)));
+    if cfg.half_range_ps == 0 || cfg.bin_ps == 0 {
+        return Err(Error::Usage(format!("scan: half-range {} ps and bin {} ps must both be > 0", cfg.half_range_ps, cfg.bin_ps)));
     }
-    rule::check_shift(cfg.span_ps as i64, "--span-ps")?;
-    let nbins = (2 * cfg.span_ps).div_ceil(cfg.bin_ps);
+    rule::check_shift(cfg.half_range_ps as i64, "--half-range-ps")?;
+    let nbins = (2 * cfg.half_range_ps).div_ceil(cfg.bin_ps);
     if nbins > 50_000_000 {
-        return Err(Error::Usage(format!("scan: {nbins} bins is too many; widen --bin-ps or narrow --span-ps")));
+        return Err(Error::Usage(format!("scan: {nbins} bins is too many; widen --bin-ps or narrow --half-range-ps")));
     }
-    Ok(PairTask::Histogram { span_ps: cfg.span_ps, bin_ps: cfg.bin_ps })
+    Ok(PairTask::Histogram { half_range_ps: cfg.half_range_ps, bin_ps: cfg.bin_ps })
 }
 
 fn scan_result(((ca, cb), delta, r): &PairOutcome, cfg: &ScanConfig) -> ScanResult {
     let PairResult::Histogram(counts) = r else { unreachable!("histogram task gives a histogram") };
-    let peak = fit_peak(counts, cfg.span_ps, cfg.bin_ps);
-    ScanResult { a: *ca, b: *cb, rel_delay_ps: *delta, span_ps: cfg.span_ps, bin_ps: cfg.bin_ps, counts: counts.clone(), peak }
+    let peak = fit_peak(counts, cfg.half_range_ps, cfg.bin_ps);
+    ScanResult { a: *ca, b: *cb, rel_delay_ps: *delta, half_range_ps: cfg.half_range_ps, bin_ps: cfg.bin_ps, counts: counts.clone(), peak }
 }
 
-/// Centre of bin i's integer support: Δ from −span + i·bin to −span + (i+1)·bin − 1.
-fn bin_centre(i: usize, span_ps: u64, bin_ps: u64) -> f64 {
-    -(span_ps as f64) + (i as f64) * bin_ps as f64 + (bin_ps as f64 - 1.0) / 2.0
+/// Centre of bin i's integer support: Δ from −half_range + i·bin to −half_range + (i+1)·bin − 1.
+fn bin_centre(i: usize, half_range_ps: u64, bin_ps: u64) -> f64 {
+    -(half_range_ps as f64) + (i as f64) * bin_ps as f64 + (bin_ps as f64 - 1.0) / 2.0
 }
 
 /// A peak's highest bin must stand this many Poisson σ of the background above it …
@@ -77,7 +77,7 @@ pub const PEAK_MIN_COUNTS: f64 = 10.0;
 /// background. FWHM: linear interpolation of the half-height crossings. Delay: centroid of
 /// background-subtracted bins within ±1.5 FWHM (at least ±2 bins) of the maximum; its σ is
 /// max(FWHM/2.355, bin/√12)/√(net counts).
-pub fn fit_peak(counts: &[u64], span_ps: u64, bin_ps: u64) -> Option<PeakFit> {
+pub fn fit_peak(counts: &[u64], half_range_ps: u64, bin_ps: u64) -> Option<PeakFit> {
     if counts.len() < 3 {
         return None;
     }
@@ -90,7 +90,7 @@ pub fn fit_peak(counts: &[u64], span_ps: u64, bin_ps: u64) -> Option<PeakFit> {
         return None;
     }
     let half = background + height / 2.0;
-    let x = |i: usize| bin_centre(i, span_ps, bin_ps);
+    let x = |i: usize| bin_centre(i, half_range_ps, bin_ps);
     let level = |i: usize| counts[i] as f64;
     let mut l = imax;
     while l > 0 && level(l - 1) > half {
@@ -164,9 +164,9 @@ pub fn propose_delays(scans: &[ScanResult], reference: Channel, channels: &[Chan
 }
 
 /// The peak criterion in words, for messages and the delays file.
-pub fn peak_criterion(span_ps: u64) -> String {
+pub fn peak_criterion(half_range_ps: u64) -> String {
     format!(
-        "no peak within ±{span_ps} ps whose highest bin stands ≥ {PEAK_MIN_SIGMA} σ (Poisson σ of the median bin) and ≥ {PEAK_MIN_COUNTS} counts above the background"
+        "no peak within ±{half_range_ps} ps whose highest bin stands ≥ {PEAK_MIN_SIGMA} σ (Poisson σ of the median bin) and ≥ {PEAK_MIN_COUNTS} counts above the background"
     )
 }
 
@@ -176,7 +176,7 @@ fn why_not_found(scans: &[ScanResult], c: Channel, reference: Channel) -> String
     let with_peak: Vec<&ScanResult> = mine.iter().copied().filter(|s| s.peak.is_some()).collect();
     match (mine.first(), with_peak.is_empty()) {
         (None, _) => "in no scanned pair".into(),
-        (Some(s), true) => format!("{} in pair(s) {}", peak_criterion(s.span_ps), list(&mine)),
+        (Some(s), true) => format!("{} in pair(s) {}", peak_criterion(s.half_range_ps), list(&mine)),
         (Some(_), false) => format!(
             "no pair with the reference {reference}: its peaks (pair(s) {}) link it only to channels that no peak links to the reference",
             list(&with_peak)

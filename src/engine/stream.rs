@@ -14,7 +14,7 @@ pub enum PairTask {
     /// Window counts at each shift c (relative to δ), half-width `half_ps`.
     Count { centres_ps: Vec<i64>, half_ps: u64 },
     /// Delay histogram over [−span, span).
-    Histogram { span_ps: u64, bin_ps: u64 },
+    Histogram { half_range_ps: u64, bin_ps: u64 },
     /// Window profiles at each shift c, up to `max_half_ps`.
     Profile { centres_ps: Vec<i64>, max_half_ps: u64 },
 }
@@ -38,14 +38,14 @@ impl PairTask {
         match self {
             PairTask::Count { centres_ps, half_ps } => around(centres_ps, *half_ps),
             PairTask::Profile { centres_ps, max_half_ps } => around(centres_ps, *max_half_ps),
-            PairTask::Histogram { span_ps, .. } => (delta - *span_ps as i64, delta + *span_ps as i64),
+            PairTask::Histogram { half_range_ps, .. } => (delta - *half_range_ps as i64, delta + *half_range_ps as i64),
         }
     }
 
     fn empty_result(&self) -> PairResult {
         match self {
             PairTask::Count { centres_ps, .. } => PairResult::Count(vec![WindowCount::default(); centres_ps.len()]),
-            PairTask::Histogram { span_ps, bin_ps } => PairResult::Histogram(vec![0; (2 * span_ps).div_ceil(*bin_ps) as usize]),
+            PairTask::Histogram { half_range_ps, bin_ps } => PairResult::Histogram(vec![0; (2 * half_range_ps).div_ceil(*bin_ps) as usize]),
             PairTask::Profile { centres_ps, max_half_ps } => {
                 PairResult::Profile(vec![vec![0; 2 * (*max_half_ps as usize + 1)]; centres_ps.len()])
             }
@@ -71,8 +71,8 @@ impl PairTask {
                     *slot = *slot + c;
                 }
             }
-            (PairTask::Histogram { span_ps, bin_ps }, PairResult::Histogram(v)) => {
-                add(v, &parallel::histogram_checked(a, b, delta, *span_ps, *bin_ps, unchecked, chunk)?);
+            (PairTask::Histogram { half_range_ps, bin_ps }, PairResult::Histogram(v)) => {
+                add(v, &parallel::histogram_checked(a, b, delta, *half_range_ps, *bin_ps, unchecked, chunk)?);
             }
             (PairTask::Profile { centres_ps, max_half_ps }, PairResult::Profile(vs)) => {
                 let mut unchecked = unchecked;

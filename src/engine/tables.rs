@@ -84,8 +84,8 @@ pub struct ScanResult {
     pub a: Channel,
     pub b: Channel,
     pub rel_delay_ps: i64,
-    /// Bin i covers [−span + i·bin, −span + (i+1)·bin) ps.
-    pub span_ps: u64,
+    /// Half-range: bin i covers [−half_range + i·bin, −half_range + (i+1)·bin) ps.
+    pub half_range_ps: u64,
     pub bin_ps: u64,
     pub counts: Vec<u64>,
     pub peak: Option<PeakFit>,
@@ -94,7 +94,7 @@ pub struct ScanResult {
 impl ScanResult {
     /// Bin edges in ps, `counts.len() + 1` values.
     pub fn bin_edges_ps(&self) -> Vec<i64> {
-        (0..=self.counts.len() as i64).map(|i| -(self.span_ps as i64) + i * self.bin_ps as i64).collect()
+        (0..=self.counts.len() as i64).map(|i| -(self.half_range_ps as i64) + i * self.bin_ps as i64).collect()
     }
 }
 

@@ -137,7 +137,7 @@ fn scan_table(s: &ScanResult) -> Table {
         .attr("a", AttrValue::U64(u64::from(s.a)))
         .attr("b", AttrValue::U64(u64::from(s.b)))
         .attr("rel_delay_ps", AttrValue::I64(s.rel_delay_ps))
-        .attr("span_ps", AttrValue::U64(s.span_ps))
+        .attr("half_range_ps", AttrValue::U64(s.half_range_ps))
         .attr("bin_ps", AttrValue::U64(s.bin_ps))
         .attr("peak_found", AttrValue::U64(u64::from(s.peak.is_some())));
     if let Some(p) = &s.peak {
@@ -279,7 +279,7 @@ fn sample_block() -> BlockTables {
         delays_ps: vec![(1, 0)],
         window_ps: Some(1000),
         coincidences: vec![row.clone()],
-        scans: vec![ScanResult { a: 1, b: 2, rel_delay_ps: 0, span_ps: 10, bin_ps: 10, counts: vec![1, 2], peak: Some(peak) }],
+        scans: vec![ScanResult { a: 1, b: 2, rel_delay_ps: 0, half_range_ps: 10, bin_ps: 10, counts: vec![1, 2], peak: Some(peak) }],
         sweeps: vec![SweepTable { a: 1, b: 2, rel_delay_ps: 0, rows: vec![row], recommended_window_ps: 1000, criterion: "max-net-significance".into() }],
     }
 }
@@ -399,7 +399,7 @@ fn note_for(kind: EntryKind, path: &str) -> &'static str {
         "counts" if in_scan => "counts per bin",
         "counts" => "pairs in the off-peak window",
         "bin_edges_ps" => "bin i covers [edge i, edge i+1) of Δ",
-        "span_ps" | "bin_ps" => "histogram half-span and bin width",
+        "half_range_ps" | "bin_ps" => "histogram half-range and bin width",
         "peak_found" => "1 when the peak fit succeeded",
         "peak_delay_ps" | "peak_delay_sigma_ps" => "peak centre in Δ, ±1σ",
         "peak_fwhm_ps" => "full width at half maximum",

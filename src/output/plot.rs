@@ -205,7 +205,7 @@ impl ScanFigure<'_> {
         Y::CoordDescType: Ranged<ValueType = f64> + ValueFormatter<f64>,
     {
         let s = self.scan;
-        let (unit, uname) = time_unit(s.span_ps as f64);
+        let (unit, uname) = time_unit(s.half_range_ps as f64);
         let edges: Vec<f64> = s.bin_edges_ps().iter().map(|e| *e as f64 / unit).collect();
         let (x0, x1) = (edges[0], *edges.last().expect("non-empty"));
         let mut chart = ChartBuilder::on(root)
@@ -352,20 +352,29 @@ impl Figure for SweepFigure<'_> {
 
 // ---------------------------------------------------------------- correlations
 
+/// The model line of the CHSH plot: E = V·cos 2(α−β) per setting pair, with where V comes
+/// from (the simulated source's visibility in the demo, a fit to the data in `chsh`).
+#[derive(Debug, Clone, Copy)]
+pub struct ModelLine<'a> {
+    pub visibility: f64,
+    /// e.g. "simulated" or "fitted to E".
+    pub source: &'a str,
+}
+
 struct CorrelationFigure<'a> {
     report: &'a ChshReport,
-    model_visibility: Option<f64>,
+    model: Option<ModelLine<'a>>,
 }
 
 /// E per setting pair with error bars (raw, and accidental-corrected when present), the
-/// primary S in the title and a text box; optionally the ideal V·cos 2(α−β) per pair.
-pub fn plot_correlations(report: &ChshReport, model_visibility: Option<f64>, path: &Path, force: bool) -> Result<()> {
-    save(&CorrelationFigure { report, model_visibility }, path, force)
+/// primary S in the title and a text box; optionally the model V·cos 2(α−β) per pair.
+pub fn plot_correlations(report: &ChshReport, model: Option<ModelLine<'_>>, path: &Path, force: bool) -> Result<()> {
+    save(&CorrelationFigure { report, model }, path, force)
 }
 
 fn s_line(kind: &str, set: &ChshSet) -> String {
     let p = set.primary();
-    format!("S ({kind}) = {:.4} ± {:.4}, {:.1} σ from 2", p.s, p.sigma, p.violation_sigma)
+    format!("S ({kind}) = {:.4} ± {:.4}: {}", p.s, p.sigma, p.verdict())
 }
 
 impl Figure for CorrelationFigure<'_> {
@@ -394,16 +403,16 @@ impl Figure for CorrelationFigure<'_> {
                     String::new()
                 }
             })
-            .x_desc("setting pair (analyzer A, analyzer B)")
+            .x_desc("setting pair (Alice, Bob)")
             .y_desc("correlation E")
             .draw()?;
         chart.draw_series(LineSeries::new(vec![(-0.5, 0.0), (3.5, 0.0)], GRAPHITE.mix(0.5)))?;
-        if let Some(v) = self.model_visibility {
+        if let Some(ModelLine { visibility: v, source }) = self.model {
             let model = r.pairs.iter().enumerate().map(|(i, p)| {
                 let e = v * (2.0 * (p.angle_a_deg - p.angle_b_deg).to_radians()).cos();
                 PathElement::new(vec![(i as f64 - 0.25, e), (i as f64 + 0.25, e)], CLAY.stroke_width(2))
             });
-            chart.draw_series(model)?.label(format!("V·cos 2(α−β), V = {v:.3}")).legend(line_key(CLAY));
+            chart.draw_series(model)?.label(format!("V·cos 2(α−β), V = {v:.3} ({source})")).legend(line_key(CLAY));
         }
         let raw: Vec<(f64, f64, f64)> =
             r.pairs.iter().enumerate().map(|(i, p)| (i as f64 - 0.08, p.raw.e, p.raw.sigma)).collect();

@@ -4,6 +4,7 @@
 
 use super::{InputFile, TagSource};
 use crate::progress::Progress;
+use crate::tags::{live_time_ps, rate_hz};
 use crate::{Channel, Error, Result};
 use serde::Serialize;
 use std::collections::BTreeMap;
@@ -12,8 +13,9 @@ use std::collections::BTreeMap;
 const CHUNK_EVENTS: usize = 1 << 20;
 
 /// What `inspect` reports for one channel. Definitions (docs/formats.md):
-/// first/last in file order; span = largest − smallest timestamp; rate = (events − 1) / span;
-/// smallest gap = smallest positive step between consecutive tags.
+/// first/last in file order; span = largest − smallest timestamp; rate = events / live time
+/// of all the inputs inspected together ([`crate::tags::rate_hz`], the definition `count`
+/// uses too); smallest gap = smallest positive step between consecutive tags.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct ChannelReport {
     pub channel: Channel,
@@ -39,6 +41,9 @@ pub struct Totals {
     pub min_ps: u64,
     pub max_ps: u64,
     pub span_ps: u64,
+    /// From the earliest to the latest tag of any channel, + 1 ps ([`crate::tags::live_time_ps`]);
+    /// `None` when no channel holds a tag.
+    pub live_time_ps: Option<u64>,
     pub rate_hz: Option<f64>,
     pub out_of_order_steps: u64,
     pub duplicate_timestamps: u64,
@@ -123,14 +128,8 @@ impl Acc {
             r.min_ps = 0;
         }
         r.span_ps = r.max_ps - r.min_ps;
-        r.rate_hz = rate_hz(r.events, r.span_ps);
         self.report
     }
-}
-
-/// (events − 1) / span in Hz; `None` without a positive span.
-pub fn rate_hz(events: u64, span_ps: u64) -> Option<f64> {
-    (span_ps > 0 && events > 1).then(|| (events - 1) as f64 / (span_ps as f64 * 1e-12))
 }
 
 /// Inspect every source in one pass each (sources opened with `lenient_order`).
@@ -150,8 +149,12 @@ pub fn inspect(sources: &[Box<dyn TagSource>], progress: &Progress) -> Result<In
         }
         s.check_unchanged()?;
     }
-    let channels: Vec<ChannelReport> = accs.into_values().map(Acc::finish).collect();
+    let mut channels: Vec<ChannelReport> = accs.into_values().map(Acc::finish).collect();
     let totals = totals(&channels);
+    // One live time for every channel: the span of all inputs together, as `count` takes it.
+    for c in &mut channels {
+        c.rate_hz = totals.live_time_ps.and_then(|t| rate_hz(c.events, t));
+    }
     Ok(InspectReport { inputs: sources.iter().map(|s| s.file()).collect(), channels, totals })
 }
 
@@ -160,13 +163,15 @@ fn totals(channels: &[ChannelReport]) -> Totals {
     let min_ps = busy.iter().map(|c| c.min_ps).min().unwrap_or(0);
     let max_ps = busy.iter().map(|c| c.max_ps).max().unwrap_or(0);
     let events = channels.iter().map(|c| c.events).sum();
+    let live_time_ps = (!busy.is_empty()).then(|| live_time_ps(min_ps, max_ps));
     Totals {
         channels: channels.len() as u64,
         events,
         min_ps,
         max_ps,
         span_ps: max_ps - min_ps,
-        rate_hz: rate_hz(events, max_ps - min_ps),
+        live_time_ps,
+        rate_hz: live_time_ps.and_then(|t| rate_hz(events, t)),
         out_of_order_steps: channels.iter().map(|c| c.out_of_order_steps).sum(),
         duplicate_timestamps: channels.iter().map(|c| c.duplicate_timestamps).sum(),
     }
@@ -184,7 +189,9 @@ mod tests {
         let r = a.finish();
         assert_eq!((r.events, r.first_ps, r.last_ps, r.min_ps, r.max_ps), (5, 10, 40, 10, 40));
         assert_eq!((r.out_of_order_steps, r.duplicate_timestamps, r.min_gap_ps), (1, 1, Some(10)));
-        // 4 intervals over 30 ps.
-        assert_eq!(r.rate_hz, Some(4.0 / 30e-12));
+        // The rate is set by `inspect` over all channels together; alone, this channel's
+        // 5 events over a live time of 40 − 10 + 1 = 31 ps (README, "Rates").
+        let rate = rate_hz(r.events, live_time_ps(r.min_ps, r.max_ps)).unwrap();
+        assert!((rate - 5.0 / 31e-12).abs() <= 1e-15 * rate, "{rate}");
     }
 }

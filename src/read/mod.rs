@@ -45,7 +45,7 @@ impl Default for ReadOptions {
 pub struct InputFile {
     pub path: PathBuf,
     pub size_bytes: u64,
-    /// "channel-array", "records" or "container".
+    /// "arrays", "records" or "container": the names the manifest's `format` key and `simulate --format` use.
     pub format: &'static str,
 }
 
