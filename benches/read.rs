@@ -54,7 +54,7 @@ fn make_files() -> Files {
     let array = dir.path().join("a.u64");
     write_channel_array(&array, &single).expect("array");
     drop(single);
-    let container = dir.path().join("c.sieve");
+    let container = dir.path().join("c.tsieve");
     write_container(&container, &one, 1.0, "bench").expect("container");
     let records = dir.path().join("r.bin");
     let half = synthetic((bytes / 16) as usize);

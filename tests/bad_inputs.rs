@@ -317,15 +317,15 @@ fn container_wrong_magic() {
     let d = Dir::new();
     let mut b = container(1, 1000, &[(1, &[5, 9])]);
     b[1] = b'X';
-    d.file("m.sieve", &b);
-    expect(&run(d.path(), &["inspect", "m.sieve"]), 2, &["m.sieve", "byte offset 0", "first bytes [7f, 58, 53", "not a container file (its .sieve magic is [7f, 54, 53"]);
+    d.file("m.tsieve", &b);
+    expect(&run(d.path(), &["inspect", "m.tsieve"]), 2, &["m.tsieve", "byte offset 0", "first bytes [7f, 58, 53", "not a container file (its .tsieve magic is [7f, 54, 53"]);
 }
 
 #[test]
 fn container_unknown_version() {
     let d = Dir::new();
-    d.file("v.sieve", &container(7, 1000, &[(1, &[5, 9])]));
-    expect(&run(d.path(), &["inspect", "v.sieve"]), 2, &["v.sieve", "byte offset 8", "found version 7", "expected version 1"]);
+    d.file("v.tsieve", &container(7, 1000, &[(1, &[5, 9])]));
+    expect(&run(d.path(), &["inspect", "v.tsieve"]), 2, &["v.tsieve", "byte offset 8", "found version 7", "expected version 1"]);
 }
 
 #[test]
@@ -333,9 +333,9 @@ fn container_channel_table_past_end_of_file() {
     let d = Dir::new();
     let mut b = container(1, 1000, &[(1, &[5, 9])]);
     b[12..16].copy_from_slice(&1000u32.to_le_bytes());
-    d.file("t.sieve", &b);
+    d.file("t.tsieve", &b);
     // 96 + 1000 · 64 = 64 096.
-    expect(&run(d.path(), &["inspect", "t.sieve"]), 2, &["t.sieve", "byte offset 96", "1000 entries ending at byte 64096", "past the end of the 176-byte file"]);
+    expect(&run(d.path(), &["inspect", "t.tsieve"]), 2, &["t.tsieve", "byte offset 96", "1000 entries ending at byte 64096", "past the end of the 176-byte file"]);
 }
 
 #[test]
@@ -343,9 +343,9 @@ fn container_section_cut_short() {
     let d = Dir::new();
     let mut b = container(1, 1000, &[(1, &[5, 9, 12])]);
     b.truncate(b.len() - 4);
-    d.file("c.sieve", &b);
-    let out = run(d.path(), &["inspect", "c.sieve"]);
-    expect(&out, 2, &["c.sieve", "channel table entry 0 (byte offset 96)", "3 timestamps at byte 160 running past the end of the 180-byte file"]);
+    d.file("c.tsieve", &b);
+    let out = run(d.path(), &["inspect", "c.tsieve"]);
+    expect(&out, 2, &["c.tsieve", "channel table entry 0 (byte offset 96)", "3 timestamps at byte 160 running past the end of the 180-byte file"]);
 }
 
 #[test]
@@ -354,27 +354,27 @@ fn container_overlapping_channel_sections() {
     let mut b = container(1, 1000, &[(1, &[5, 9, 12]), (2, &[6, 7])]);
     // Entry 1 (at byte 160) gets the section offset of entry 0 + 8: inside entry 0's section.
     put_u64(&mut b, 160 + 16, 224 + 8);
-    d.file("o.sieve", &b);
-    let out = run(d.path(), &["inspect", "o.sieve"]);
-    expect(&out, 2, &["o.sieve", "channel table entry 1 (byte offset 160)", "starting at byte 232, inside entry 0's section (ends at 248)", "non-overlapping"]);
+    d.file("o.tsieve", &b);
+    let out = run(d.path(), &["inspect", "o.tsieve"]);
+    expect(&out, 2, &["o.tsieve", "channel table entry 1 (byte offset 160)", "starting at byte 232, inside entry 0's section (ends at 248)", "non-overlapping"]);
 }
 
 #[test]
 fn container_zero_and_negative_tick_length() {
     let d = Dir::new();
-    d.file("z.sieve", &container(1, 0, &[(1, &[5])]));
-    d.file("n.sieve", &container(1, -5, &[(1, &[5])]));
-    expect(&run(d.path(), &["inspect", "z.sieve"]), 2, &["z.sieve", "byte offset 16", "tick length 0 fs", "a positive tick length"]);
-    expect(&run(d.path(), &["inspect", "n.sieve"]), 2, &["n.sieve", "byte offset 16", "tick length -5 fs", "a positive tick length"]);
+    d.file("z.tsieve", &container(1, 0, &[(1, &[5])]));
+    d.file("n.tsieve", &container(1, -5, &[(1, &[5])]));
+    expect(&run(d.path(), &["inspect", "z.tsieve"]), 2, &["z.tsieve", "byte offset 16", "tick length 0 fs", "a positive tick length"]);
+    expect(&run(d.path(), &["inspect", "n.tsieve"]), 2, &["n.tsieve", "byte offset 16", "tick length -5 fs", "a positive tick length"]);
 }
 
 #[test]
 fn time_going_backwards_in_a_container() {
     let d = Dir::new();
-    d.file("b.sieve", &container(1, 1000, &[(1, &[5, 9, 12]), (2, &[6, 40, 7])]));
-    let out = run(d.path(), &["count", "-w", "1000", "b.sieve"]);
+    d.file("b.tsieve", &container(1, 1000, &[(1, &[5, 9, 12]), (2, &[6, 40, 7])]));
+    let out = run(d.path(), &["count", "-w", "1000", "b.tsieve"]);
     // Channel 2's section starts at 96 + 2 · 64 + 3 · 8 = 248; its record 2 sits at 264.
-    expect(&out, 2, &["b.sieve", "record 2 (byte offset 264)", "timestamp 7 ps after 40 ps", "≥ 40 ps"]);
+    expect(&out, 2, &["b.tsieve", "record 2 (byte offset 264)", "timestamp 7 ps after 40 ps", "≥ 40 ps"]);
 }
 
 // ---- run manifests ----
@@ -387,7 +387,7 @@ fn manifest() -> String {
         t += &format!("[[channel]]\nnumber = {n}\nname = \"ch{n}\"\n\n");
     }
     for (name, a, b) in [("ab", "a", "b"), ("abp", "a", "b'"), ("apb", "a'", "b"), ("apbp", "a'", "b'")] {
-        t += &format!("[[block]]\nname = \"{name}\"\nalice = \"{a}\"\nbob = \"{b}\"\nformat = \"container\"\ninputs = [\"{name}.sieve\"]\n\n");
+        t += &format!("[[block]]\nname = \"{name}\"\nalice = \"{a}\"\nbob = \"{b}\"\nformat = \"container\"\ninputs = [\"{name}.tsieve\"]\n\n");
     }
     t
 }
@@ -504,11 +504,11 @@ fn full_disk_during_the_write() {
     }
     // 20 000 timestamps = 160 000 bytes of container sections: more than 64 KiB.
     d.file("big.u64", &u64s_le(&(0..20_000).map(|i| i * 100).collect::<Vec<_>>()));
-    let import = run(d.path(), &["import", "-q", "1=big.u64", "-o", "small/x.sieve"]);
+    let import = run(d.path(), &["import", "-q", "1=big.u64", "-o", "small/x.tsieve"]);
     let json = run(d.path(), &["scan", "-q", "1=big.u64", "2=big.u64", "--format", "json", "-o", "small/s.json"]);
     let left: Vec<_> = std::fs::read_dir(&mnt).unwrap().map(|e| e.unwrap().file_name()).collect();
     let _ = std::process::Command::new("umount").arg(&mnt).status();
-    expect(&import, 1, &["small/x.sieve", "No space left on device"]);
+    expect(&import, 1, &["small/x.tsieve", "No space left on device"]);
     expect(&json, 1, &["small/s.json", "No space left on device"]);
     assert!(left.is_empty(), "left behind on the full disk: {left:?}");
 }
@@ -532,7 +532,7 @@ fn import_truncated_while_mapped_leaves_no_temporary() {
     let run = Truncation::new(50_000_000);
     let out_dir = run.dir.path().join("out");
     std::fs::create_dir(&out_dir).unwrap();
-    let dest = out_dir.join("x.sieve");
+    let dest = out_dir.join("x.tsieve");
     let dest = dest.to_str().unwrap();
     let (out, seen) = run.cut_when(&["import", "-q", "-o", dest], Ready::TempIn(&out_dir), 0);
     assert!(seen, "no temporary output ever appeared in {}", out_dir.display());

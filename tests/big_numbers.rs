@@ -74,7 +74,7 @@ fn all_pairs_inside_one_window_count_n_a_times_n_b() {
     assert_eq!(h5_row(&h5), (expected, na));
 
     // The same events as one container, on the streaming pass.
-    let sieve = c.dir.join("all.sieve");
+    let sieve = c.dir.join("all.tsieve");
     let st = tagsieve().args(["--quiet", "import", &c.a, &c.b, "-o", sieve.to_str().unwrap()]).status().unwrap();
     assert!(st.success());
     let h5s = c.dir.join("stream.h5");

@@ -41,7 +41,7 @@ fn refused(out: &Output, parts: &[&str]) -> String {
 fn simulated_run() -> (tempfile::TempDir, PathBuf) {
     let dir = tempfile::tempdir().unwrap();
     ok(&run(dir.path(), &["simulate", "-o", "run", "--duration-s", "0.3", "--seed", "11", "--omit-delays", "-q"]));
-    let block = dir.path().join("run/ab.sieve");
+    let block = dir.path().join("run/ab.tsieve");
     assert!(block.exists());
     (dir, block)
 }
@@ -54,7 +54,7 @@ fn delays_toml(dir: &Path, name: &str) -> toml::Table {
 fn a_channel_outside_the_span_is_left_out_and_said_even_when_quiet() {
     let (dir, _) = simulated_run();
     let d = dir.path();
-    let stdout = ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--half-range-ps", "30000", "-q"]));
+    let stdout = ok(&run(d, &["scan", "run/ab.tsieve", "--reference", "1", "--half-range-ps", "30000", "-q"]));
     let file = delays_toml(d, "delays.toml");
     let found = file["delays_ps"].as_table().unwrap();
     // Channels 3 and 4 arrive ≥ 40.6 ns late: no peak within ±30 ns, so no delay at all;
@@ -70,7 +70,7 @@ fn a_channel_outside_the_span_is_left_out_and_said_even_when_quiet() {
     assert!(stdout.contains("no delay found") && stdout.contains("  3: no peak") && stdout.contains("  4: no peak"), "{stdout}");
 
     // The JSON lists them with the reason too, and leaves them out of the proposal.
-    let out = ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--half-range-ps", "30000", "--json", "--delays-out", "d2.toml"]));
+    let out = ok(&run(d, &["scan", "run/ab.tsieve", "--reference", "1", "--half-range-ps", "30000", "--json", "--delays-out", "d2.toml"]));
     let v: serde_json::Value = serde_json::from_str(&out).unwrap();
     assert!(v["proposed_delays_ps"].get("3").is_none());
     assert!(v["delays_not_found"]["3"].as_str().unwrap().contains("no peak"));
@@ -83,7 +83,7 @@ fn channels_in_no_pair_with_the_reference_get_their_reason() {
     let d = dir.path();
     // 2:4 has a peak (the − outputs), but nothing links 2 or 4 to the reference 1 (1:2 are
     // two outputs of one analyzer: no pairs); 3 is in no scanned pair at all.
-    let stdout = ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--pairs", "1:2,2:4", "-q"]));
+    let stdout = ok(&run(d, &["scan", "run/ab.tsieve", "--reference", "1", "--pairs", "1:2,2:4", "-q"]));
     let file = delays_toml(d, "delays.toml");
     let found = file["delays_ps"].as_table().unwrap();
     assert_eq!(found.keys().collect::<Vec<_>>(), vec!["1"], "{found:?}");
@@ -98,7 +98,7 @@ fn channels_in_no_pair_with_the_reference_get_their_reason() {
 fn a_given_delay_is_kept_for_a_channel_the_scan_did_not_find() {
     let (dir, _) = simulated_run();
     let d = dir.path();
-    ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--half-range-ps", "30000", "--delay", "3=41250", "-q"]));
+    ok(&run(d, &["scan", "run/ab.tsieve", "--reference", "1", "--half-range-ps", "30000", "--delay", "3=41250", "-q"]));
     let file = delays_toml(d, "delays.toml");
     // With 3 shifted by its true delay, the scan finds it directly (and 2 through it).
     let found = file["delays_ps"].as_table().unwrap();
@@ -108,7 +108,7 @@ fn a_given_delay_is_kept_for_a_channel_the_scan_did_not_find() {
     // Channel 4 is still compared at delay 0: its peaks lie ≥ 40 ns out, beyond ±30 ns.
     assert!(file["not_found"]["4"].as_str().unwrap().contains("no peak"));
     // A given delay the scan cannot confirm (the peak pushed outside ±H) is written as given.
-    ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--half-range-ps", "30000", "--pairs", "1:2,1:3", "--delay", "4=1300", "--force", "-q"]));
+    ok(&run(d, &["scan", "run/ab.tsieve", "--reference", "1", "--half-range-ps", "30000", "--pairs", "1:2,1:3", "--delay", "4=1300", "--force", "-q"]));
     let file = delays_toml(d, "delays.toml");
     assert_eq!(file["delays_ps"]["4"].as_integer(), Some(1300));
     assert!(file["obtained"]["4"].as_str().unwrap().starts_with("given with --delay"));
@@ -119,20 +119,20 @@ fn a_given_delay_is_kept_for_a_channel_the_scan_did_not_find() {
 fn count_sweep_and_chsh_refuse_a_channel_without_a_delay() {
     let (dir, _) = simulated_run();
     let d = dir.path();
-    ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--half-range-ps", "30000", "-q"]));
+    ok(&run(d, &["scan", "run/ab.tsieve", "--reference", "1", "--half-range-ps", "30000", "-q"]));
     let parts = ["delays.toml", "no delay for channel 2 (no peak", "channel 3 (no peak", "channel 4 (no peak", "--delay 2=PS"];
-    refused(&run(d, &["count", "run/ab.sieve", "--delays", "delays.toml", "-w", "500", "-q"]), &parts);
-    refused(&run(d, &["count", "run/ab.sieve", "--delays", "delays.toml", "-w", "500", "--pairs", "1:3", "-q"]), &["no delay for channel 3"]);
-    refused(&run(d, &["sweep", "run/ab.sieve", "--delays", "delays.toml", "--pairs", "1:4", "-q"]), &["no delay for channel 4"]);
+    refused(&run(d, &["count", "run/ab.tsieve", "--delays", "delays.toml", "-w", "500", "-q"]), &parts);
+    refused(&run(d, &["count", "run/ab.tsieve", "--delays", "delays.toml", "-w", "500", "--pairs", "1:3", "-q"]), &["no delay for channel 3"]);
+    refused(&run(d, &["sweep", "run/ab.tsieve", "--delays", "delays.toml", "--pairs", "1:4", "-q"]), &["no delay for channel 4"]);
     refused(&run(d, &["chsh", "run/run.toml", "--delays", "delays.toml", "-w", "500", "-q"]), &["delays.toml", "no delay for channel 2"]);
     // No output was left behind by the refusals.
     assert!(!d.join("out.h5").exists());
     // Pairs whose channels all have delays count; flags complete the file.
-    ok(&run(d, &["count", "run/ab.sieve", "--delays", "delays.toml", "--delay", "2=850", "-w", "500", "--pairs", "1:2", "-q"]));
-    let all = ["count", "run/ab.sieve", "--delays", "delays.toml", "--delay", "2=850", "--delay", "3=41250", "--delay", "4=40600", "-w", "500", "-q"];
+    ok(&run(d, &["count", "run/ab.tsieve", "--delays", "delays.toml", "--delay", "2=850", "-w", "500", "--pairs", "1:2", "-q"]));
+    let all = ["count", "run/ab.tsieve", "--delays", "delays.toml", "--delay", "2=850", "--delay", "3=41250", "--delay", "4=40600", "-w", "500", "-q"];
     ok(&run(d, &all));
     // Without any delays file, an unlisted channel keeps the documented default 0.
-    ok(&run(d, &["count", "run/ab.sieve", "-w", "500", "--pairs", "1:2", "-q"]));
+    ok(&run(d, &["count", "run/ab.tsieve", "-w", "500", "--pairs", "1:2", "-q"]));
 }
 
 #[test]
@@ -140,9 +140,9 @@ fn delays_out_is_not_replaced_without_force() {
     let (dir, _) = simulated_run();
     let d = dir.path();
     std::fs::write(d.join("delays.toml"), "# mine\n").unwrap();
-    refused(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "-q"]), &["delays.toml", "exists", "--force"]);
+    refused(&run(d, &["scan", "run/ab.tsieve", "--reference", "1", "-q"]), &["delays.toml", "exists", "--force"]);
     assert_eq!(std::fs::read_to_string(d.join("delays.toml")).unwrap(), "# mine\n");
-    ok(&run(d, &["scan", "run/ab.sieve", "--reference", "1", "--force", "-q"]));
+    ok(&run(d, &["scan", "run/ab.tsieve", "--reference", "1", "--force", "-q"]));
     assert!(delays_toml(d, "delays.toml").contains_key("delays_ps"));
 }
 
@@ -150,12 +150,12 @@ fn delays_out_is_not_replaced_without_force() {
 fn delay_for_a_missing_channel_and_bad_pairs_are_refused() {
     let (dir, _) = simulated_run();
     let d = dir.path();
-    refused(&run(d, &["count", "run/ab.sieve", "-w", "500", "--delay", "9=5", "-q"]), &["--delay 9=5", "no input provides channel 9"]);
-    refused(&run(d, &["scan", "run/ab.sieve", "--delay", "9=5", "-q"]), &["no input provides channel 9"]);
-    refused(&run(d, &["scan", "run/ab.sieve", "--reference", "7", "-q"]), &["--reference 7", "no input provides channel 7"]);
-    refused(&run(d, &["count", "run/ab.sieve", "-w", "500", "--pairs", "1:2,1:2", "-q"]), &["pair 1:2 is given twice"]);
-    refused(&run(d, &["count", "run/ab.sieve", "-w", "500", "--pairs", "1:3,3:1", "-q"]), &["pair 1:3 is given twice"]);
-    refused(&run(d, &["sweep", "run/ab.sieve", "--pairs", "2:2", "-q"]), &["--pairs 2:2", "itself"]);
+    refused(&run(d, &["count", "run/ab.tsieve", "-w", "500", "--delay", "9=5", "-q"]), &["--delay 9=5", "no input provides channel 9"]);
+    refused(&run(d, &["scan", "run/ab.tsieve", "--delay", "9=5", "-q"]), &["no input provides channel 9"]);
+    refused(&run(d, &["scan", "run/ab.tsieve", "--reference", "7", "-q"]), &["--reference 7", "no input provides channel 7"]);
+    refused(&run(d, &["count", "run/ab.tsieve", "-w", "500", "--pairs", "1:2,1:2", "-q"]), &["pair 1:2 is given twice"]);
+    refused(&run(d, &["count", "run/ab.tsieve", "-w", "500", "--pairs", "1:3,3:1", "-q"]), &["pair 1:3 is given twice"]);
+    refused(&run(d, &["sweep", "run/ab.tsieve", "--pairs", "2:2", "-q"]), &["--pairs 2:2", "itself"]);
 }
 
 #[test]
@@ -163,13 +163,13 @@ fn negative_and_zero_ps_values_get_one_clear_message() {
     let (dir, _) = simulated_run();
     let d = dir.path();
     let want = "expected a whole number of ps > 0";
-    let spaced = refused(&run(d, &["count", "run/ab.sieve", "--window-ps", "-5"]), &[want, "-5"]);
-    let joined = refused(&run(d, &["count", "run/ab.sieve", "--window-ps=-5"]), &[want]);
+    let spaced = refused(&run(d, &["count", "run/ab.tsieve", "--window-ps", "-5"]), &[want, "-5"]);
+    let joined = refused(&run(d, &["count", "run/ab.tsieve", "--window-ps=-5"]), &[want]);
     assert_eq!(spaced, joined);
-    refused(&run(d, &["count", "run/ab.sieve", "-w", "0"]), &[want]);
-    refused(&run(d, &["scan", "run/ab.sieve", "--half-range-ps", "-100"]), &[want]);
-    refused(&run(d, &["scan", "run/ab.sieve", "--bin-ps", "0"]), &[want]);
-    refused(&run(d, &["sweep", "run/ab.sieve", "--windows-ps", "100,-3"]), &[want]);
+    refused(&run(d, &["count", "run/ab.tsieve", "-w", "0"]), &[want]);
+    refused(&run(d, &["scan", "run/ab.tsieve", "--half-range-ps", "-100"]), &[want]);
+    refused(&run(d, &["scan", "run/ab.tsieve", "--bin-ps", "0"]), &[want]);
+    refused(&run(d, &["sweep", "run/ab.tsieve", "--windows-ps", "100,-3"]), &[want]);
     refused(&run(d, &["chsh", "run/run.toml", "-w", "-1"]), &[want]);
 }
 

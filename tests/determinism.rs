@@ -43,9 +43,9 @@ fn inputs() -> &'static Inputs {
         let records = dir.path().join("rec/ab0.records");
         let events = std::fs::metadata(&records).unwrap().len() / 16;
         assert!(events > STREAM_CHUNK_EVENTS as u64, "{events} records: the stream pass must see several chunks");
-        run_ok(&["-q", "import", records.to_str().unwrap(), "--layout", LAYOUT, "-o", &d("ab0.sieve")]);
+        run_ok(&["-q", "import", records.to_str().unwrap(), "--layout", LAYOUT, "-o", &d("ab0.tsieve")]);
         run_ok(&["-q", "simulate", "--seed", "5", "-o", &d("chsh")]);
-        Inputs { records, container: dir.path().join("ab0.sieve"), manifest: dir.path().join("chsh/run.toml"), dir }
+        Inputs { records, container: dir.path().join("ab0.tsieve"), manifest: dir.path().join("chsh/run.toml"), dir }
     })
 }
 

@@ -168,7 +168,7 @@ fn keep(p: &Path) -> &'static Path {
 }
 
 fn block(name: &str) -> &'static Path {
-    keep(&inputs().run.join(format!("{name}.sieve")))
+    keep(&inputs().run.join(format!("{name}.tsieve")))
 }
 
 #[test]
@@ -211,9 +211,9 @@ fn import_interrupted_while_converting() {
     let out = tempfile::tempdir().unwrap();
     let i = inputs();
     let (a, b) = (format!("1={}", s(&i.arrays[0])), format!("2={}", s(&i.arrays[1])));
-    let sieve = out.path().join("both.sieve");
+    let sieve = out.path().join("both.tsieve");
     let args = ["--quiet", "import", &a, &b, "-o", s(&sieve)];
-    check_command(&args, |_| Moment::Mapped(keep(&i.arrays[0])), out.path(), &["both.sieve"]);
+    check_command(&args, |_| Moment::Mapped(keep(&i.arrays[0])), out.path(), &["both.tsieve"]);
 }
 
 /// A simulated run is one job: interrupted after its first block file is finished, it
@@ -223,7 +223,7 @@ fn simulate_interrupted_between_blocks_leaves_no_block() {
     let out = tempfile::tempdir().unwrap();
     let run = keep(&out.path().join("sim"));
     let args = ["--quiet", "simulate", "--pair-rate-hz", "1e6", "--duration-s", "1", "-o", s(run)];
-    check_command(&args, |_| Moment::SecondFile(run), run, &["ab.sieve", "abp.sieve", "apb.sieve", "apbp.sieve", "run.toml"]);
+    check_command(&args, |_| Moment::SecondFile(run), run, &["ab.tsieve", "abp.tsieve", "apb.tsieve", "apbp.tsieve", "run.toml"]);
 }
 
 /// A large delay histogram (2·10^6 bins of 1 ps) takes long enough to write that the

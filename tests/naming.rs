@@ -238,7 +238,7 @@ fn inspect_names_formats_as_the_manifest_does() {
         .collect();
     let cases: [&[&str]; 3] = [
         &ARRAYS,
-        &["fixtures/link_small.sieve"],
+        &["fixtures/link_small.tsieve"],
         &["fixtures/records_be64.bin", "--layout", "rec=16,time=8:8:be,chan=0:1,tick_ps=1"],
     ];
     for (args, want) in cases.iter().zip(&names) {

@@ -17,7 +17,7 @@ fn run(args: &[&str]) -> (i32, String) {
 /// `import` (strict reader) must fail with exit 2 and every `needles` text in the message.
 fn import_fails(inputs: &[&str], extra: &[&str], needles: &[&str]) {
     let d = tempfile::tempdir().unwrap();
-    let out = d.path().join("o.sieve");
+    let out = d.path().join("o.tsieve");
     let mut args = vec!["import"];
     args.extend_from_slice(inputs);
     args.extend_from_slice(extra);
@@ -125,7 +125,7 @@ fn toml_layout_errors_carry_line_numbers() {
 
 /// A valid two-channel container to corrupt at the offsets docs/formats.md gives.
 fn container(dir: &Path) -> (PathBuf, Vec<u8>) {
-    let p = dir.join("c.sieve");
+    let p = dir.join("c.tsieve");
     let chans = [ChannelTags::owned(1, "a", vec![1, 5, 9]), ChannelTags::owned(2, "b", vec![2, 4])];
     write_container(&p, &chans, 1.0, "t").unwrap();
     let bytes = std::fs::read(&p).unwrap();
@@ -135,7 +135,7 @@ fn container(dir: &Path) -> (PathBuf, Vec<u8>) {
 fn patched(dir: &Path, base: &[u8], at: usize, value: &[u8]) -> PathBuf {
     let mut b = base.to_vec();
     b[at..at + value.len()].copy_from_slice(value);
-    file(dir, "bad.sieve", &b)
+    file(dir, "bad.tsieve", &b)
 }
 
 fn open_err(p: &Path) -> String {
@@ -168,7 +168,7 @@ fn container_errors() {
         let p = patched(d.path(), &base, at, &value);
         let e = open_err(&p);
         for n in needles {
-            assert!(e.contains(n) && e.contains("bad.sieve"), "patch at {at}: expected {n:?} in: {e}");
+            assert!(e.contains(n) && e.contains("bad.tsieve"), "patch at {at}: expected {n:?} in: {e}");
         }
     }
     let p = patched(d.path(), &base, 176, &64u64.to_le_bytes());
@@ -177,7 +177,7 @@ fn container_errors() {
     let p = patched(d.path(), &base, 232, &0u64.to_le_bytes());
     let e = open_err(&p);
     assert!(e.contains("record 1 (byte offset 232): found timestamp 0 ps after 1 ps"), "{e}");
-    let empty = file(d.path(), "empty.sieve", b"");
+    let empty = file(d.path(), "empty.tsieve", b"");
     assert!(Container::open(&empty, ReadOptions::default()).unwrap_err().to_string().contains("empty file"));
 }
 
@@ -188,5 +188,27 @@ fn container_errors_exit_2_through_the_binary() {
     let p = patched(d.path(), &base, 8, &7u32.to_le_bytes());
     let (code, err) = run(&["inspect", p.to_str().unwrap()]);
     assert_eq!(code, 2, "{err}");
-    assert!(err.contains("bad.sieve: byte offset 8: found version 7"), "{err}");
+    assert!(err.contains("bad.tsieve: byte offset 8: found version 7"), "{err}");
+}
+
+/// Containers are written as `.tsieve`; one still named `.sieve` (the earlier extension,
+/// which shared-mime-info gives to the Sieve mail-filter language) is read the same, with a
+/// deprecation note on stderr that --quiet silences.
+#[test]
+fn old_container_extension_is_read_with_a_note() {
+    let d = tempfile::tempdir().unwrap();
+    let st = common::tagsieve().current_dir(d.path()).args(["simulate", "-o", "run", "--duration-s", "0.05", "-q"]).status().unwrap();
+    assert!(st.success());
+    assert!(d.path().join("run/ab.tsieve").exists(), "simulate names containers .tsieve");
+    std::fs::copy(d.path().join("run/ab.tsieve"), d.path().join("old.sieve")).unwrap();
+    let new = common::tagsieve().current_dir(d.path()).args(["inspect", "--json", "run/ab.tsieve"]).output().unwrap();
+    let old = common::tagsieve().current_dir(d.path()).args(["inspect", "--json", "old.sieve"]).output().unwrap();
+    assert!(new.status.success() && old.status.success());
+    let err = String::from_utf8_lossy(&old.stderr);
+    assert!(err.contains("old.sieve: the .sieve extension is deprecated") && err.contains(".tsieve"), "{err}");
+    assert!(!String::from_utf8_lossy(&new.stderr).contains("deprecated"));
+    let events = |o: &std::process::Output| serde_json::from_slice::<serde_json::Value>(&o.stdout).unwrap()["totals"]["events"].clone();
+    assert_eq!(events(&new), events(&old));
+    let quiet = common::tagsieve().current_dir(d.path()).args(["inspect", "-q", "old.sieve"]).output().unwrap();
+    assert!(!String::from_utf8_lossy(&quiet.stderr).contains("deprecated"));
 }

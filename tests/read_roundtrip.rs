@@ -80,7 +80,7 @@ fn channel_arrays_round_trip() {
 #[test]
 fn container_round_trips_zero_copy_and_chunked() {
     let d = tempfile::tempdir().unwrap();
-    let p = d.path().join("run.sieve");
+    let p = d.path().join("run.tsieve");
     let chans: Vec<ChannelTags> = (1..=4).map(|c| ChannelTags::owned(c, format!("ch{c}"), times(c as u64 * 7, 3000 + c as usize * 100, 500))).collect();
     write_container(&p, &chans, 1.0, "test").unwrap();
     let want: Vec<(u32, Vec<u64>)> = chans.iter().map(|c| (c.channel, c.times_ps.to_vec())).collect();
@@ -96,7 +96,7 @@ fn container_round_trips_zero_copy_and_chunked() {
 #[test]
 fn container_chunks_are_time_aligned() {
     let d = tempfile::tempdir().unwrap();
-    let p = d.path().join("run.sieve");
+    let p = d.path().join("run.tsieve");
     let chans: Vec<ChannelTags> = (1..=3).map(|c| ChannelTags::owned(c, "", times(c as u64, 4000 / c as usize, 300 * c as u64))).collect();
     write_container(&p, &chans, 1.0, "test").unwrap();
     let src = open_inputs(&[arg(&p)], None, opts(true)).unwrap();
@@ -165,7 +165,7 @@ fn import_arrays_and_records_into_containers() {
     let (pa, pb) = (d.path().join("a.u64"), d.path().join("b.u64"));
     write_channel_array(&pa, &a).unwrap();
     write_channel_array(&pb, &b).unwrap();
-    let out = d.path().join("ab.sieve");
+    let out = d.path().join("ab.tsieve");
     let (sa, sb) = (format!("1:larch_plus={}", pa.display()), format!("2={}", pb.display()));
     run_ok(&["--quiet", "import", &sa, &sb, "-o", out.to_str().unwrap()]);
     let (whole, _) = read_both_ways(&[arg(&out)], None, true, 100);
@@ -181,7 +181,7 @@ fn import_arrays_and_records_into_containers() {
     let per: Vec<ChannelTags> = (0..2u32).map(|c| ChannelTags::owned(c + 3, "", ticks.iter().skip(c as usize).step_by(2).map(|&t| ps_of(t, 80_955)).collect())).collect();
     let rec = d.path().join("r.bin");
     write_records(&rec, &layout, &per).unwrap();
-    let out2 = d.path().join("r.sieve");
+    let out2 = d.path().join("r.tsieve");
     run_ok(&["--quiet", "import", rec.to_str().unwrap(), "--layout", layout_path.to_str().unwrap(), "-o", out2.to_str().unwrap()]);
     let (whole, _) = read_both_ways(&[arg(&out2)], None, false, 100);
     assert_eq!(whole, per.iter().map(|c| (c.channel, c.times_ps.to_vec())).collect::<Vec<_>>());
@@ -194,5 +194,5 @@ fn import_arrays_and_records_into_containers() {
     assert_eq!(whole, vec![(1, a)]);
     let mut names: Vec<String> = std::fs::read_dir(d.path()).unwrap().map(|e| e.unwrap().file_name().to_string_lossy().into_owned()).collect();
     names.sort();
-    assert_eq!(names, ["a.u64", "ab.sieve", "b.u64", "l.toml", "r.bin", "r.sieve"]);
+    assert_eq!(names, ["a.u64", "ab.tsieve", "b.u64", "l.toml", "r.bin", "r.tsieve"]);
 }

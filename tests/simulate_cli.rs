@@ -115,12 +115,12 @@ fn visibility_series_lists_one_block_per_angle() {
 fn existing_output_is_refused_without_force() {
     let d = tempfile::tempdir().unwrap();
     assert!(simulate(d.path(), &[]).status.success());
-    let before = std::fs::read(d.path().join("ab.sieve")).unwrap();
+    let before = std::fs::read(d.path().join("ab.tsieve")).unwrap();
     let again = simulate(d.path(), &["--pair-rate-hz", "1e5"]);
     assert_eq!(again.status.code(), Some(2));
     let err = String::from_utf8_lossy(&again.stderr);
     assert!(err.contains("--force"), "{err}");
-    assert_eq!(std::fs::read(d.path().join("ab.sieve")).unwrap(), before);
+    assert_eq!(std::fs::read(d.path().join("ab.tsieve")).unwrap(), before);
     assert!(simulate(d.path(), &["--force"]).status.success());
 }
 

@@ -3,7 +3,7 @@
 # scripts a lab would write (tools/numpy_count.py, tools/numpy_scan.py) and against a plain
 # sum over the same mapped files (examples/mem_read.rs), on one ≥ 1 GB two-channel input.
 #
-# Usage: tools/bench_engine.sh            (env: BENCH_DIR, REPS, PYTHON, NUMPY_PREFIX)
+# Usage: tools/bench_engine.sh            (env: BENCH_DIR, REPS, TAGSIEVE_PYTHON, NUMPY_PREFIX)
 # The simulated input is kept in BENCH_DIR for the next run (delete it by hand).
 # NUMPY_PREFIX=N times NumPy on the first N A events only and scales linearly (counts are
 # then not compared). Prints a table; see docs/benchmarks.md.
@@ -11,14 +11,14 @@ set -euo pipefail
 
 cd "$(dirname "$0")/.."
 BENCH_DIR=${BENCH_DIR:-/tmp/tagsieve-bench}
-PYTHON=${PYTHON:-/work/main/.venv/bin/python}
+PYTHON=${TAGSIEVE_PYTHON:-$PWD/.venv/bin/python}   # the test venv (tools/setup.sh --python)
 REPS=${REPS:-3}
 NUMPY_PREFIX=${NUMPY_PREFIX:-0}
 THREADS=2
 WINDOW_PS=1000        # w = 1 ns
 SPAN_PS=20000         # scan ±20 ns
 BIN_PS=50             # 50 ps bins
-DELTA_PS=41250        # d_3 − d_1 of the scenario (docs: /work/shared/scenario.md)
+DELTA_PS=41250        # d_3 − d_1 of the invented demo scenario (src/simulate: scenario_detectors)
 
 cargo build --release --quiet --bin tagsieve --example mem_read
 TARGET=$(cargo metadata --format-version 1 --no-deps | "$PYTHON" -c 'import json,sys; print(json.load(sys.stdin)["target_directory"])')

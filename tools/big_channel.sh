@@ -7,12 +7,12 @@
 #
 # WORKDIR (default /tmp/tagsieve-big) must have >= 45 GB free, else the check is skipped.
 # The big file is deleted at the end, whatever the outcome. Needs NumPy
-# ($TAGSIEVE_PYTHON, default /work/main/.venv/bin/python) and /usr/bin/time for peak RSS.
+# ($TAGSIEVE_PYTHON, default the repository's .venv/bin/python) and /usr/bin/time for peak RSS.
 set -euo pipefail
 
 work=${1:-/tmp/tagsieve-big}
 bin=${2:-$(dirname "$0")/../target/release/tagsieve}
-py=${TAGSIEVE_PYTHON:-/work/main/.venv/bin/python}
+py=${TAGSIEVE_PYTHON:-$(dirname "$0")/../.venv/bin/python}
 mkdir -p "$work"
 trap 'rm -f "$work/big.u64"' EXIT
 

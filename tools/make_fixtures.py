@@ -140,10 +140,10 @@ def container(out, rng):
     for k, t in enumerate(data):
         table += struct.pack("<IIQQ", k + 1, 0, len(t), offset) + names[k].encode().ljust(40, b"\0")
         offset += 8 * len(t)
-    with open(os.path.join(out, "link_small.sieve"), "wb") as f:
+    with open(os.path.join(out, "link_small.tsieve"), "wb") as f:
         f.write(head + table + b"".join(t.astype("<u8").tobytes() for t in data))
-    chans = [stats(k + 1, names[k], "fixtures/link_small.sieve", t) for k, t in enumerate(data)]
-    expected(out, "link_small", ["fixtures/link_small.sieve"], None, chans, 0)
+    chans = [stats(k + 1, names[k], "fixtures/link_small.tsieve", t) for k, t in enumerate(data)]
+    expected(out, "link_small", ["fixtures/link_small.tsieve"], None, chans, 0)
 
 
 LAYOUT_TOML = """\

@@ -1,4 +1,4 @@
-//! `tagsieve import`: per-channel arrays or interleaved records → one .sieve container, in
+//! `tagsieve import`: per-channel arrays or interleaved records → one .tsieve container, in
 //! one streaming pass (read::convert) with a progress bar; atomic, `--force` to replace.
 
 use super::Global;
@@ -19,7 +19,7 @@ pub struct Args {
     /// tick in ps; default: none).
     #[arg(long, value_name = "FILE|SPEC")]
     pub layout: Option<String>,
-    /// Output container file (convention: .sieve extension).
+    /// Output container file (convention: .tsieve extension).
     #[arg(long, short, value_name = "OUT")]
     pub output: PathBuf,
     /// Replace OUT if it exists (default: refuse).
@@ -32,6 +32,7 @@ pub struct Args {
 pub fn run(args: Args, g: &Global) -> Result<()> {
     let layout = args.layout.as_deref().map(RecordLayout::from_arg).transpose()?;
     let sources = open_inputs(&args.inputs, layout.as_ref(), args.read.read_options())?;
+    super::note_old_extensions(&sources, g);
     // The header records the record layout's tick; per-channel arrays are 1 ps already.
     let tick = layout.as_ref().map_or(Tick { fs: 1000 }, |l| l.tick);
     let total: u64 = sources.iter().map(|s| s.event_count()).sum();

@@ -28,6 +28,7 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     let layout = args.layout.as_deref().map(RecordLayout::from_arg).transpose()?;
     let opts = ReadOptions { lenient_order: true, ..args.read.read_options() };
     let sources = open_inputs(&args.inputs, layout.as_ref(), opts)?;
+    super::note_old_extensions(&sources, g);
     let total: u64 = sources.iter().map(|s| s.event_count()).sum();
     let progress = tagsieve::progress::Progress::items("inspect", total, g.quiet);
     let report = inspect(&sources, &progress)?;

@@ -111,8 +111,24 @@ use tagsieve::read::TagSource;
 use tagsieve::Result;
 
 /// Open one block's inputs.
-pub fn open(input: &common::InputArgs, _g: &Global) -> Result<Vec<Box<dyn TagSource>>> {
-    tagsieve::pipeline::open_block(&input.inputs, input.layout.as_deref(), input.read.read_options())
+pub fn open(input: &common::InputArgs, g: &Global) -> Result<Vec<Box<dyn TagSource>>> {
+    let sources = tagsieve::pipeline::open_block(&input.inputs, input.layout.as_deref(), input.read.read_options())?;
+    note_old_extensions(&sources, g);
+    Ok(sources)
+}
+
+/// A note on stderr for each container still named `.sieve` (unless --quiet).
+pub fn note_old_extensions(sources: &[Box<dyn TagSource>], g: &Global) {
+    if g.quiet {
+        return;
+    }
+    for s in sources {
+        if s.file().format == "container" {
+            if let Some(note) = tagsieve::read::container::old_extension_note(&s.file().path) {
+                eprintln!("tagsieve: note: {note}");
+            }
+        }
+    }
 }
 
 /// Record each input's path, size and checksum.

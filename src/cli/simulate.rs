@@ -49,7 +49,7 @@ pub struct Args {
     /// delay_ps (ps). Defaults: the Larch–Rowan scenario, channels 1–4.
     #[arg(long = "detector", value_name = "CH:KEY=VALUE,...")]
     pub detectors: Vec<String>,
-    /// File format of the blocks: container (one .sieve file), arrays (one u64 file per
+    /// File format of the blocks: container (one .tsieve file), arrays (one u64 file per
     /// channel) or records (16-byte interleaved records).
     #[arg(long, value_enum, default_value_t = FormatArg::Container)]
     pub format: FormatArg,

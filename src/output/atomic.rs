@@ -245,7 +245,7 @@ mod tests {
     #[test]
     fn batch_holds_renames_until_commit_and_drop_removes_them() {
         let d = tempfile::tempdir().unwrap();
-        let (p, q) = (d.path().join("a.sieve"), d.path().join("run.toml"));
+        let (p, q) = (d.path().join("a.tsieve"), d.path().join("run.toml"));
         let batch = OutputBatch::begin();
         write_bytes(&p, b"a", false).unwrap();
         write_bytes(&q, b"b", false).unwrap();

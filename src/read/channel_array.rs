@@ -111,7 +111,7 @@ mod tests {
     fn arg_forms() {
         assert_eq!(parse_arg("3=run/ab_ch3.u64").unwrap(), Some((3, String::new(), PathBuf::from("run/ab_ch3.u64"))));
         assert_eq!(parse_arg("4:rowan_minus=x=y").unwrap(), Some((4, "rowan_minus".into(), PathBuf::from("x=y"))));
-        assert_eq!(parse_arg("run/a.sieve").unwrap(), None);
+        assert_eq!(parse_arg("run/a.tsieve").unwrap(), None);
         assert_eq!(parse_arg("dir/a=b").unwrap(), None);
         assert!(parse_arg("99999999999=a").is_err());
         assert!(parse_arg("3=").is_err());

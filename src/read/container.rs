@@ -1,4 +1,5 @@
-//! Format (c): our columnar container (`.sieve`). A versioned 96-byte header (tick length,
+//! Format (c): our columnar container (`.tsieve`; the older `.sieve`, which a mail-filter
+//! language also claims, is still read). A versioned 96-byte header (tick length,
 //! creation time, creator), a channel table, then each channel's u64 LE timestamps in an
 //! 8-byte aligned section, so every channel maps zero-copy. Byte layout: docs/formats.md.
 
@@ -11,8 +12,23 @@ use crate::{Channel, ChannelTags, Error, Result};
 use std::io::{BufWriter, Write};
 use std::path::Path;
 
-/// File name extension we give containers.
-pub const EXTENSION: &str = ".sieve";
+/// File name extension we give containers (no common format on a Debian desktop claims
+/// it in shared-mime-info's database; checked against its globs2 file).
+pub const EXTENSION: &str = ".tsieve";
+/// The extension containers had before: still read (containers are recognised by their
+/// magic bytes, not their name), with a deprecation note from the command line.
+pub const OLD_EXTENSION: &str = ".sieve";
+
+/// The deprecation note for a container still named with [`OLD_EXTENSION`], if `path` is one.
+pub fn old_extension_note(path: &Path) -> Option<String> {
+    let name = path.file_name()?.to_str()?;
+    name.ends_with(OLD_EXTENSION).then(|| {
+        format!(
+            "{}: the {OLD_EXTENSION} extension is deprecated (a mail-filter language uses it too); rename the file to {EXTENSION}",
+            path.display()
+        )
+    })
+}
 /// The first eight bytes of every container.
 pub const MAGIC: [u8; 8] = *b"\x7fTSIEVE\n";
 /// The only version this build reads and writes.
