@@ -250,7 +250,7 @@ pub fn setting_counts(m: &Manifest, blocks: &[BlockTables]) -> Result<Vec<Settin
                     let r = row_of(&blocks[i], pairs[0])?;
                     counts[k] = r.coincidences;
                     acc[k] = r.acc_analytic;
-                    l[k] = spec.live_time_s.unwrap_or_else(|| blocks[i].span.map(|s| s.duration_ps() as f64 * 1e-12).unwrap_or(0.0));
+                    l[k] = spec.live_time_s.unwrap_or_else(|| blocks[i].span.map(|s| crate::units::ps_to_s(s.duration_ps())).unwrap_or(0.0));
                 }
                 live = Some(l);
             }

@@ -14,7 +14,8 @@
 //! the partners, as B is sorted. The loops are compiled twice, for the baseline target and
 //! with AVX2 and with AVX-512 (the compare becomes vector compares); [`isa`] picks at run time.
 
-use super::kernels::{lower_bound, lower_bound_from, WindowCount};
+use super::search::{lower_bound, lower_bound_from};
+use super::tables::WindowCount;
 
 /// Independent pointer chains one loop carries.
 pub const LANES: usize = 8;
@@ -26,14 +27,19 @@ pub const STRIDE: usize = 8;
 /// The stride compare: of `w[..STRIDE]` (ascending), how many v have v − x < `left` and
 /// v − x ≤ `right`. Comparing differences with the fixed edges lets the vector versions
 /// broadcast x once and keep the edges in registers for the whole loop.
-pub trait Compare {
+///
+/// Private on purpose: the [`Avx2`] and [`Avx512`] versions execute AVX2 / AVX-512F
+/// instructions from safe methods, which is sound only because they are reached solely
+/// from `count_groups_avx2` / `count_groups_avx512` (compiled with those features) after
+/// [`detect`] found them on the CPU. Nothing outside this file can name them.
+trait Compare {
     fn below_upto(w: &[u64], x: i64, left: i64, right: i64) -> (usize, usize);
     /// Only `below`: the step of a pointer whose partners are rare (off-peak windows).
     fn below(w: &[u64], x: i64, left: i64) -> usize;
 }
 
 /// Plain integer compares (any CPU).
-pub struct Portable;
+struct Portable;
 
 impl Compare for Portable {
     #[inline(always)]
@@ -55,9 +61,9 @@ impl Compare for Portable {
 }
 
 /// AVX2: four 4-wide compares of signed 64-bit values (tags are < 2^62 ps, so signed
-/// is exact).
+/// is exact). Requires AVX2 (see [`Compare`]).
 #[cfg(target_arch = "x86_64")]
-pub struct Avx2;
+struct Avx2;
 
 #[cfg(target_arch = "x86_64")]
 impl Compare for Avx2 {
@@ -99,9 +105,9 @@ impl Compare for Avx2 {
     }
 }
 
-/// AVX-512: two 8-wide compares into mask registers.
+/// AVX-512: two 8-wide compares into mask registers. Requires AVX-512F (see [`Compare`]).
 #[cfg(target_arch = "x86_64")]
-pub struct Avx512;
+struct Avx512;
 
 #[cfg(target_arch = "x86_64")]
 impl Compare for Avx512 {

@@ -8,9 +8,11 @@
 //! order check deferred ([`crate::ChannelTags::order_checked`] false) are then read once,
 //! checked and counted while in cache, instead of once to check and again to count.
 
-use super::kernels::{self, lower_bound, upper_bound, WindowCount};
+use super::kernels;
+use super::search::{lower_bound, upper_bound};
+use super::tables::WindowCount;
 use super::lanes::STRIDE;
-use crate::read::sections::ascending_below_limit;
+use crate::tags::ascending_below_limit;
 use rayon::prelude::*;
 
 /// A events per task. Large enough to amortise the binary search, small enough to balance.
@@ -179,7 +181,7 @@ where
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::read::MAX_PS;
+    use crate::tags::MAX_TIME_PS;
     use crate::simulate::rng::Rng;
 
     /// Sorted A in bursts (so B holds long stretches no A chunk reaches) and sorted B
@@ -254,12 +256,12 @@ mod tests {
         let (a, mut b) = streams(3);
         let plain = count_windows_checked(&a, &b, &[0], 400, Unchecked { a: true, b: true }, 8);
         assert!(plain.is_ok());
-        b.push(MAX_PS);
+        b.push(MAX_TIME_PS);
         assert_eq!(count_windows_checked(&a, &b, &[0], 400, Unchecked { a: true, b: true }, 8), Err(Disorder::B));
         assert_eq!(count_windows_checked(&a, &b, &[0], 400, Unchecked { a: true, b: false }, 8), plain);
         // No A events: B is still checked, on its own.
         assert_eq!(count_windows_checked(&[], &[5, 3], &[0], 400, Unchecked { a: true, b: true }, 8), Err(Disorder::B));
         assert_eq!(count_windows_checked(&[], &[3, 5], &[0], 400, Unchecked { a: true, b: true }, 8), Ok(vec![WindowCount::default()]));
-        assert!(!ascending(&[1, MAX_PS]) && ascending(&[1, MAX_PS - 1]) && ascending(&[]));
+        assert!(!ascending(&[1, MAX_TIME_PS]) && ascending(&[1, MAX_TIME_PS - 1]) && ascending(&[]));
     }
 }

@@ -130,7 +130,7 @@ impl Acc {
 
 /// (events − 1) / span in Hz; `None` without a positive span.
 pub fn rate_hz(events: u64, span_ps: u64) -> Option<f64> {
-    (span_ps > 0 && events > 1).then(|| (events - 1) as f64 / (span_ps as f64 * 1e-12))
+    (span_ps > 0 && events > 1).then(|| (events - 1) as f64 / crate::units::ps_to_s(span_ps))
 }
 
 /// Inspect every source in one pass each (sources opened with `lenient_order`).
