@@ -7,7 +7,7 @@ use crate::analysis::visibility::AnglePoint;
 use crate::engine::tables::{BlockTables, Estimate};
 use crate::engine::{self, count, scan, sweep, CountConfig, Criterion, Delays, ScanConfig};
 use crate::manifest::{Manifest, Port, Role, Setup};
-use crate::progress::Progress;
+use crate::sys::progress::Progress;
 use crate::read::{self, layout::RecordLayout, ReadOptions, TagSource};
 use crate::{Channel, Error, Result};
 

@@ -52,7 +52,8 @@ pub fn ascending_below_limit(w: &[u64]) -> bool {
 
 /// Whether any value of `w` is below the one before it, vectorised where the CPU allows
 /// (x86-64's baseline has no 64-bit vector compare; AVX2 has a signed one, AVX-512 an
-/// unsigned one into mask registers: a third fewer cycles per GB than AVX2 here).
+/// unsigned one into mask registers: a third fewer cycles per GB than AVX2 here). The
+/// choice follows [`crate::sys::cpu::isa`], so `TAGSIEVE_ISA` lowers it as in the engine.
 pub fn descends(w: &[u64]) -> bool {
     #[inline(always)]
     fn plain(w: &[u64]) -> bool {
@@ -88,17 +89,15 @@ pub fn descends(w: &[u64]) -> bool {
     if w.len() < 2 {
         return false;
     }
-    #[cfg(target_arch = "x86_64")]
-    if std::arch::is_x86_feature_detected!("avx512f") {
-        // SAFETY: the CPU has AVX-512F (checked just above).
-        return unsafe { avx512(w) };
+    match crate::sys::cpu::isa() {
+        // SAFETY: `isa()` reports AVX-512F only when the CPU has it.
+        #[cfg(target_arch = "x86_64")]
+        crate::sys::cpu::Isa::Avx512 => unsafe { avx512(w) },
+        // SAFETY: `isa()` reports AVX2 only when the CPU has it.
+        #[cfg(target_arch = "x86_64")]
+        crate::sys::cpu::Isa::Avx2 => unsafe { avx2(w) },
+        _ => plain(w),
     }
-    #[cfg(target_arch = "x86_64")]
-    if std::arch::is_x86_feature_detected!("avx2") {
-        // SAFETY: the CPU has AVX2 (checked just above).
-        return unsafe { avx2(w) };
-    }
-    plain(w)
 }
 
 #[cfg(test)]

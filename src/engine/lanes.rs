@@ -14,6 +14,7 @@
 //! the partners, as B is sorted. The loops are compiled twice, for the baseline target and
 //! with AVX2 and with AVX-512 (the compare becomes vector compares); [`isa`] picks at run time.
 
+pub use crate::sys::cpu::{detect, isa, Isa};
 use super::search::{lower_bound, lower_bound_from};
 use super::tables::WindowCount;
 
@@ -135,42 +136,6 @@ impl Compare for Avx512 {
             _mm512_cmplt_epi64_mask(v, _mm512_set1_epi64(x + left)).count_ones() as usize
         }
     }
-}
-
-/// The instruction set the loops run with on this CPU.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
-pub enum Isa {
-    Portable,
-    Avx2,
-    Avx512,
-}
-
-/// The best [`Isa`] this CPU has (detected once; `TAGSIEVE_ISA=portable|avx2` lowers it,
-/// so tests can run every variant on one machine).
-pub fn isa() -> Isa {
-    static ISA: std::sync::OnceLock<Isa> = std::sync::OnceLock::new();
-    *ISA.get_or_init(|| {
-        let best = detect();
-        match std::env::var("TAGSIEVE_ISA").as_deref() {
-            Ok("portable") => Isa::Portable,
-            Ok("avx2") if best == Isa::Avx512 => Isa::Avx2,
-            _ => best,
-        }
-    })
-}
-
-/// The best [`Isa`] the CPU has, ignoring `TAGSIEVE_ISA`.
-pub fn detect() -> Isa {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if std::arch::is_x86_feature_detected!("avx512f") && std::arch::is_x86_feature_detected!("popcnt") {
-            return Isa::Avx512;
-        }
-        if std::arch::is_x86_feature_detected!("avx2") && std::arch::is_x86_feature_detected!("popcnt") {
-            return Isa::Avx2;
-        }
-    }
-    Isa::Portable
 }
 
 /// A's lanes: `LANES` equal contiguous slices of `a`, and what is left after them.

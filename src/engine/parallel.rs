@@ -182,7 +182,23 @@ where
 mod tests {
     use super::*;
     use crate::tags::MAX_TIME_PS;
-    use crate::simulate::rng::Rng;
+
+    /// SplitMix64 (Steele, Lea, Flood, OOPSLA 2014): test data from a generator of the
+    /// tests' own, so the engine's tests need nothing from the layers above it.
+    struct Rng(u64);
+
+    impl Rng {
+        fn new(seed: u64) -> Self {
+            Rng(seed)
+        }
+        fn next_u64(&mut self) -> u64 {
+            self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+            let mut z = self.0;
+            z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+            z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+            z ^ (z >> 31)
+        }
+    }
 
     /// Sorted A in bursts (so B holds long stretches no A chunk reaches) and sorted B
     /// spread over the whole span, with equal values in both.

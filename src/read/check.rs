@@ -3,7 +3,7 @@
 //! pass over lenient chunks, so order problems are counted instead of failing.
 
 use super::{InputFile, TagSource};
-use crate::progress::Progress;
+use crate::sys::progress::Progress;
 use crate::{Channel, Error, Result};
 use serde::Serialize;
 use std::collections::BTreeMap;
