@@ -10,8 +10,8 @@
 //! do not depend on how A is cut.
 //!
 //! One step compares the next [`STRIDE`] B elements with the event's window edges at once
-//! ([`Compare`]): `below` (< left) is how far the pointer moves, `upto` (≤ right) − `below`
-//! the partners, as B is sorted. The loops are compiled twice, for the baseline target and
+//! (the private `Compare` trait): `below` (< left) is how far the pointer moves,
+//! `upto` (≤ right) − `below` the partners, as B is sorted. The loops are compiled twice, for the baseline target and
 //! with AVX2 and with AVX-512 (the compare becomes vector compares); [`isa`] picks at run time.
 
 pub use crate::sys::cpu::{detect, isa, Isa};
