@@ -193,7 +193,7 @@ pub fn singles_rows(channels: &[ChannelSummary], span: BlockSpan) -> Vec<Singles
             first_ps: c.first_ps.unwrap_or(0),
             last_ps: c.last_ps.unwrap_or(0),
             live_time_ps: live_ps,
-            rate_hz: c.events as f64 / crate::units::ps_to_s(live_ps),
+            rate_hz: c.events as f64 / (live_ps as f64 * 1e-12),
         })
         .collect()
 }

@@ -3,7 +3,7 @@
 //! pass over lenient chunks, so order problems are counted instead of failing.
 
 use super::{InputFile, TagSource};
-use crate::sys::progress::Progress;
+use crate::progress::Progress;
 use crate::{Channel, Error, Result};
 use serde::Serialize;
 use std::collections::BTreeMap;
@@ -130,7 +130,7 @@ impl Acc {
 
 /// (events − 1) / span in Hz; `None` without a positive span.
 pub fn rate_hz(events: u64, span_ps: u64) -> Option<f64> {
-    (span_ps > 0 && events > 1).then(|| (events - 1) as f64 / crate::units::ps_to_s(span_ps))
+    (span_ps > 0 && events > 1).then(|| (events - 1) as f64 / (span_ps as f64 * 1e-12))
 }
 
 /// Inspect every source in one pass each (sources opened with `lenient_order`).
