@@ -17,7 +17,7 @@
 use super::layout::{Endian, Field, RecordLayout};
 use super::mapping::Mapping;
 use super::{looks_monotone, record_location, InputFile, ReadOptions, TagSource, MAX_PS};
-use crate::sys::atomic::AtomicOutput;
+use crate::output::atomic::AtomicOutput;
 use crate::{Channel, ChannelTags, Error, Result};
 use rayon::prelude::*;
 use std::collections::HashMap;
