@@ -9,7 +9,7 @@ use crate::engine::{accidentals, count::DEFAULT_SLICE_PS, scan, sweep, CountConf
 use crate::manifest::{InputFormat, Manifest, Settings, Setup};
 use crate::output::{self, layout, layout_analysis, plot, provenance::Provenance, AttrValue, Format};
 use crate::pipeline::{self, PassMode};
-use crate::progress::Progress;
+use crate::sys::progress::Progress;
 use crate::read::ReadOptions;
 use crate::simulate::{self, plan, RunConfig, SourceModel};
 use crate::{Channel, Error, Result};

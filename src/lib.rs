@@ -10,16 +10,18 @@ pub mod analysis;
 pub mod demo;
 pub mod engine;
 pub mod error;
-#[cfg(unix)]
-pub mod guard;
 pub mod manifest;
 pub mod output;
 pub mod pipeline;
-pub mod progress;
 pub mod read;
 pub mod simulate;
+pub mod sys;
 pub mod tags;
 pub mod units;
 
 pub use error::{Error, Result};
 pub use tags::{Channel, ChannelTags};
+/// Former homes of [`sys::guard`] and [`sys::progress`], kept while callers move.
+#[cfg(unix)]
+pub use sys::guard;
+pub use sys::progress;

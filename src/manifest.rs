@@ -346,7 +346,7 @@ impl Manifest {
 
     /// Write the manifest atomically to `path` (refusing to replace it unless `force`).
     pub fn save(&self, path: &Path, force: bool) -> Result<()> {
-        crate::output::atomic::write_bytes(path, self.to_toml_string()?.as_bytes(), force)
+        crate::sys::atomic::write_bytes(path, self.to_toml_string()?.as_bytes(), force)
     }
 
     /// `p` resolved against the manifest's directory (absolute paths stay as they are).

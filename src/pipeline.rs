@@ -7,7 +7,7 @@ use crate::analysis::visibility::AnglePoint;
 use crate::engine::tables::{BlockTables, Estimate};
 use crate::engine::{self, count, scan, sweep, CountConfig, Criterion, Delays, ScanConfig};
 use crate::manifest::{Manifest, Port, Role, Setup};
-use crate::progress::Progress;
+use crate::sys::progress::Progress;
 use crate::read::{self, layout::RecordLayout, ReadOptions, TagSource};
 use crate::{Channel, Error, Result};
 
@@ -318,7 +318,7 @@ pub fn setting_counts(m: &Manifest, blocks: &[BlockTables]) -> Result<Vec<Settin
                     let r = row_of(&blocks[i], pairs[0])?;
                     counts[k] = r.coincidences;
                     acc[k] = r.acc_analytic;
-                    l[k] = spec.live_time_s.unwrap_or_else(|| blocks[i].span.map(|s| s.duration_ps() as f64 * 1e-12).unwrap_or(0.0));
+                    l[k] = spec.live_time_s.unwrap_or_else(|| blocks[i].span.map(|s| crate::units::ps_to_s(s.duration_ps())).unwrap_or(0.0));
                 }
                 live = Some(l);
             }

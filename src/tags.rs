@@ -1,7 +1,15 @@
-//! The data model every layer shares: a channel number and its time tags,
-//! sorted ascending, in integer picoseconds.
+//! The data model every layer shares: a channel number and its time tags, sorted
+//! ascending, in integer picoseconds; the time limit and the ordering predicates that
+//! readers and engine both apply.
 
 use std::borrow::Cow;
+
+/// Largest timestamp accepted, exclusive: 2^62 ps (about 53 days). Readers refuse tags at
+/// or past it, so the engine's signed differences of two tags and a delay cannot overflow.
+pub const MAX_TIME_PS: u64 = 1 << 62;
+
+pub mod order;
+pub use order::{ascending_below_limit, descends};
 
 /// A detector channel number as the time-to-digital converter reports it.
 pub type Channel = u32;
@@ -16,7 +24,7 @@ pub struct ChannelTags<'a> {
     /// Human name (e.g. `larch_plus`); empty when the format carries none.
     pub name: String,
     pub times_ps: Cow<'a, [u64]>,
-    /// Whether `times_ps` is known to be ascending and below [`crate::read::MAX_PS`]. The
+    /// Whether `times_ps` is known to be ascending and below [`MAX_TIME_PS`]. The
     /// readers check that as they open a file, except on the whole-file path of `count`,
     /// `sweep` and `scan`, where the check is left to the engine's first pass over the
     /// channel ([`crate::engine::parallel`]) so a large file is read once, not twice.

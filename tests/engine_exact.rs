@@ -129,7 +129,7 @@ proptest! {
 
 #[test]
 fn large_timestamps_and_negative_shifts_do_not_overflow() {
-    let t0 = rule::MAX_TIME_PS - 10_000;
+    let t0 = tagsieve::tags::MAX_TIME_PS - 10_000;
     let a = [t0, t0 + 5000];
     let b = [t0 - 3000, t0 + 2000, t0 + 5001];
     let c = parallel::count_window(&a, &b, -3000, 0);

@@ -10,7 +10,7 @@
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use tagsieve::manifest::Manifest;
-use tagsieve::progress::Progress;
+use tagsieve::sys::progress::Progress;
 use tagsieve::read::layout::RecordLayout;
 use tagsieve::read::records::Records;
 use tagsieve::read::{check, open_inputs, ReadOptions, TagSource};

@@ -2,7 +2,7 @@
 //! of configurable length (so drifting rates are handled), W = 2⌊w/2⌋+1 ps; (ii) measured,
 //! the mean count in K windows of the same width at offsets far from the peak.
 
-use super::kernels::{lower_bound, upper_bound};
+use super::search::{lower_bound, upper_bound};
 use super::tables::{BlockSpan, Estimate};
 
 /// Centre of the nearest default off-peak window, ps from the peak: 2 µs, clear of the

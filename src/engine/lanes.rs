@@ -10,11 +10,13 @@
 //! do not depend on how A is cut.
 //!
 //! One step compares the next [`STRIDE`] B elements with the event's window edges at once
-//! ([`Compare`]): `below` (< left) is how far the pointer moves, `upto` (≤ right) − `below`
-//! the partners, as B is sorted. The loops are compiled twice, for the baseline target and
+//! (the private `Compare` trait): `below` (< left) is how far the pointer moves,
+//! `upto` (≤ right) − `below` the partners, as B is sorted. The loops are compiled twice, for the baseline target and
 //! with AVX2 and with AVX-512 (the compare becomes vector compares); [`isa`] picks at run time.
 
-use super::kernels::{lower_bound, lower_bound_from, WindowCount};
+pub use crate::sys::cpu::{detect, isa, Isa};
+use super::search::{lower_bound, lower_bound_from};
+use super::tables::WindowCount;
 
 /// Independent pointer chains one loop carries.
 pub const LANES: usize = 8;
@@ -26,14 +28,19 @@ pub const STRIDE: usize = 8;
 /// The stride compare: of `w[..STRIDE]` (ascending), how many v have v − x < `left` and
 /// v − x ≤ `right`. Comparing differences with the fixed edges lets the vector versions
 /// broadcast x once and keep the edges in registers for the whole loop.
-pub trait Compare {
+///
+/// Private on purpose: the [`Avx2`] and [`Avx512`] versions execute AVX2 / AVX-512F
+/// instructions from safe methods, which is sound only because they are reached solely
+/// from `count_groups_avx2` / `count_groups_avx512` (compiled with those features) after
+/// [`detect`] found them on the CPU. Nothing outside this file can name them.
+trait Compare {
     fn below_upto(w: &[u64], x: i64, left: i64, right: i64) -> (usize, usize);
     /// Only `below`: the step of a pointer whose partners are rare (off-peak windows).
     fn below(w: &[u64], x: i64, left: i64) -> usize;
 }
 
 /// Plain integer compares (any CPU).
-pub struct Portable;
+struct Portable;
 
 impl Compare for Portable {
     #[inline(always)]
@@ -55,9 +62,9 @@ impl Compare for Portable {
 }
 
 /// AVX2: four 4-wide compares of signed 64-bit values (tags are < 2^62 ps, so signed
-/// is exact).
+/// is exact). Requires AVX2 (see [`Compare`]).
 #[cfg(target_arch = "x86_64")]
-pub struct Avx2;
+struct Avx2;
 
 #[cfg(target_arch = "x86_64")]
 impl Compare for Avx2 {
@@ -99,9 +106,9 @@ impl Compare for Avx2 {
     }
 }
 
-/// AVX-512: two 8-wide compares into mask registers.
+/// AVX-512: two 8-wide compares into mask registers. Requires AVX-512F (see [`Compare`]).
 #[cfg(target_arch = "x86_64")]
-pub struct Avx512;
+struct Avx512;
 
 #[cfg(target_arch = "x86_64")]
 impl Compare for Avx512 {
@@ -129,42 +136,6 @@ impl Compare for Avx512 {
             _mm512_cmplt_epi64_mask(v, _mm512_set1_epi64(x + left)).count_ones() as usize
         }
     }
-}
-
-/// The instruction set the loops run with on this CPU.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
-pub enum Isa {
-    Portable,
-    Avx2,
-    Avx512,
-}
-
-/// The best [`Isa`] this CPU has (detected once; `TAGSIEVE_ISA=portable|avx2` lowers it,
-/// so tests can run every variant on one machine).
-pub fn isa() -> Isa {
-    static ISA: std::sync::OnceLock<Isa> = std::sync::OnceLock::new();
-    *ISA.get_or_init(|| {
-        let best = detect();
-        match std::env::var("TAGSIEVE_ISA").as_deref() {
-            Ok("portable") => Isa::Portable,
-            Ok("avx2") if best == Isa::Avx512 => Isa::Avx2,
-            _ => best,
-        }
-    })
-}
-
-/// The best [`Isa`] the CPU has, ignoring `TAGSIEVE_ISA`.
-pub fn detect() -> Isa {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if std::arch::is_x86_feature_detected!("avx512f") && std::arch::is_x86_feature_detected!("popcnt") {
-            return Isa::Avx512;
-        }
-        if std::arch::is_x86_feature_detected!("avx2") && std::arch::is_x86_feature_detected!("popcnt") {
-            return Isa::Avx2;
-        }
-    }
-    Isa::Portable
 }
 
 /// A's lanes: `LANES` equal contiguous slices of `a`, and what is left after them.

@@ -10,6 +10,7 @@ pub mod lanes;
 pub mod parallel;
 pub mod rule;
 pub mod scan;
+pub mod search;
 pub mod stream;
 pub mod sweep;
 pub mod tables;

@@ -8,9 +8,11 @@
 //! order check deferred ([`crate::ChannelTags::order_checked`] false) are then read once,
 //! checked and counted while in cache, instead of once to check and again to count.
 
-use super::kernels::{self, lower_bound, upper_bound, WindowCount};
+use super::kernels;
+use super::search::{lower_bound, upper_bound};
+use super::tables::WindowCount;
 use super::lanes::STRIDE;
-use crate::read::sections::ascending_below_limit;
+use crate::tags::ascending_below_limit;
 use rayon::prelude::*;
 
 /// A events per task. Large enough to amortise the binary search, small enough to balance.
@@ -179,8 +181,24 @@ where
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::read::MAX_PS;
-    use crate::simulate::rng::Rng;
+    use crate::tags::MAX_TIME_PS;
+
+    /// SplitMix64 (Steele, Lea, Flood, OOPSLA 2014): test data from a generator of the
+    /// tests' own, so the engine's tests need nothing from the layers above it.
+    struct Rng(u64);
+
+    impl Rng {
+        fn new(seed: u64) -> Self {
+            Rng(seed)
+        }
+        fn next_u64(&mut self) -> u64 {
+            self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+            let mut z = self.0;
+            z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+            z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+            z ^ (z >> 31)
+        }
+    }
 
     /// Sorted A in bursts (so B holds long stretches no A chunk reaches) and sorted B
     /// spread over the whole span, with equal values in both.
@@ -254,12 +272,12 @@ mod tests {
         let (a, mut b) = streams(3);
         let plain = count_windows_checked(&a, &b, &[0], 400, Unchecked { a: true, b: true }, 8);
         assert!(plain.is_ok());
-        b.push(MAX_PS);
+        b.push(MAX_TIME_PS);
         assert_eq!(count_windows_checked(&a, &b, &[0], 400, Unchecked { a: true, b: true }, 8), Err(Disorder::B));
         assert_eq!(count_windows_checked(&a, &b, &[0], 400, Unchecked { a: true, b: false }, 8), plain);
         // No A events: B is still checked, on its own.
         assert_eq!(count_windows_checked(&[], &[5, 3], &[0], 400, Unchecked { a: true, b: true }, 8), Err(Disorder::B));
         assert_eq!(count_windows_checked(&[], &[3, 5], &[0], 400, Unchecked { a: true, b: true }, 8), Ok(vec![WindowCount::default()]));
-        assert!(!ascending(&[1, MAX_PS]) && ascending(&[1, MAX_PS - 1]) && ascending(&[]));
+        assert!(!ascending(&[1, MAX_TIME_PS]) && ascending(&[1, MAX_TIME_PS - 1]) && ascending(&[]));
     }
 }

@@ -8,8 +8,6 @@
 
 use crate::{Error, Result};
 
-/// Largest timestamp the engine accepts: 2^62 ps (about 53 days); readers enforce it.
-pub const MAX_TIME_PS: u64 = 1 << 62;
 /// Largest |delay|, window, span or offset: 2^60 ps (about 13 days), so sums cannot overflow i64.
 pub const MAX_SPAN_PS: u64 = 1 << 60;
 

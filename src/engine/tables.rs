@@ -123,3 +123,17 @@ pub struct BlockTables {
     pub scans: Vec<ScanResult>,
     pub sweeps: Vec<SweepTable>,
 }
+
+/// Counts of one window position: pairs and heralded A events.
+#[derive(Debug, Default, Clone, Copy, PartialEq, Eq)]
+pub struct WindowCount {
+    pub pairs: u64,
+    pub heralded: u64,
+}
+
+impl std::ops::Add for WindowCount {
+    type Output = WindowCount;
+    fn add(self, o: WindowCount) -> WindowCount {
+        WindowCount { pairs: self.pairs + o.pairs, heralded: self.heralded + o.heralded }
+    }
+}

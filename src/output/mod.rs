@@ -2,7 +2,6 @@
 //! attributes) and one writer per format behind the [`Writer`] trait. Writers never see
 //! engine types; `layout` turns engine and analysis results into a Document.
 
-pub mod atomic;
 pub mod csv;
 pub mod hdf5;
 pub mod json;
@@ -11,6 +10,8 @@ pub mod layout_analysis;
 pub mod plot;
 pub mod provenance;
 
+/// Atomic writes now live in [`crate::sys::atomic`]; this path stays while callers move.
+pub use crate::sys::atomic;
 use crate::{Error, Result};
 use std::path::Path;
 

@@ -5,7 +5,7 @@
 use crate::analysis::chsh::{ChshReport, ChshSet};
 use crate::analysis::visibility::{AnglePoint, VisibilityFit};
 use crate::engine::tables::{ScanResult, SweepTable};
-use crate::output::atomic;
+use crate::sys::atomic;
 use crate::{Error, Result};
 use plotters::chart::MeshStyle;
 use plotters::coord::ranged1d::{AsRangedCoord, Ranged, ValueFormatter};

@@ -4,7 +4,7 @@
 use super::mapping::Mapping;
 use super::sections::{self, Section, SectionChunks};
 use super::{InputFile, ReadOptions, TagSource};
-use crate::output::atomic::AtomicOutput;
+use crate::sys::atomic::AtomicOutput;
 use crate::{Channel, ChannelTags, Error, Result};
 use std::io::{BufWriter, Write};
 use std::path::{Path, PathBuf};

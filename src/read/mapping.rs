@@ -18,7 +18,7 @@ pub struct Mapping {
     mtime: Option<SystemTime>,
     /// Keeps the mapped range on the SIGBUS guard's list (dropped before the map).
     #[cfg(unix)]
-    _guard: Option<crate::guard::MapToken>,
+    _guard: Option<crate::sys::guard::MapToken>,
     backing: Backing,
 }
 
@@ -50,7 +50,7 @@ impl Mapping {
     /// the mapping (or any slice borrowed from it) is alive. Truncation would make page
     /// accesses fault (SIGBUS); rewriting would change bytes we already validated. Appending
     /// is harmless (we only look at the first `size_bytes` recorded here). The mapped range
-    /// is registered with [`crate::guard`], so when the CLI has installed its SIGBUS handler
+    /// is registered with [`crate::sys::guard`], so when the CLI has installed its SIGBUS handler
     /// a broken promise ends the process with a clear message and exit code 1, not a crash.
     pub unsafe fn open_mapped(path: &Path) -> Result<Self> {
         let (file, size_bytes, mtime) = open_regular(path)?;
@@ -75,7 +75,7 @@ impl Mapping {
         let mut m = Mapping::new(path, size_bytes, mtime, Backing::Mapped(map));
         #[cfg(unix)]
         if let Backing::Mapped(map) = &m.backing {
-            m._guard = Some(crate::guard::register_mapping(map.as_ptr(), map.len(), path));
+            m._guard = Some(crate::sys::guard::register_mapping(map.as_ptr(), map.len(), path));
         }
         Ok(m)
     }

@@ -20,9 +20,9 @@ use crate::{Channel, ChannelTags, Error, Result};
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
-/// Largest timestamp accepted (exclusive): 2^62 ps ≈ 53.4 days. Keeps every difference of
-/// two timestamps plus a delay inside i64 with room to spare.
-pub const MAX_PS: u64 = 1 << 62;
+/// The time limit [`crate::tags::MAX_TIME_PS`] under the readers' short name (one constant;
+/// this alias stays while record readers name it so).
+pub use crate::tags::MAX_TIME_PS as MAX_PS;
 
 /// How inputs are read.
 #[derive(Debug, Clone, Copy)]

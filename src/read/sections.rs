@@ -4,6 +4,7 @@
 
 use super::mapping::Mapping;
 use super::{looks_monotone, record_location, MAX_PS};
+use crate::tags::descends;
 use crate::{Channel, ChannelTags, Error, Result};
 use std::borrow::Cow;
 
@@ -76,57 +77,6 @@ fn any_descent(times: &[u64]) -> bool {
     (0..times.len().div_ceil(PIECE)).into_par_iter().map(piece).reduce(|| false, |x, y| x | y)
 }
 
-/// Whether any value of `w` is below the one before it, vectorised where the CPU allows
-/// (x86-64's baseline has no 64-bit vector compare; AVX2 has a signed one, AVX-512 an
-/// unsigned one into mask registers: a third fewer cycles per GB than AVX2 here).
-fn descends(w: &[u64]) -> bool {
-    #[inline(always)]
-    fn plain(w: &[u64]) -> bool {
-        let n = w.len().saturating_sub(1);
-        w[1..].iter().zip(&w[..n]).fold(false, |acc, (x, y)| acc | (x < y))
-    }
-    #[cfg(target_arch = "x86_64")]
-    #[target_feature(enable = "avx2")]
-    unsafe fn avx2(w: &[u64]) -> bool {
-        plain(w)
-    }
-    #[cfg(target_arch = "x86_64")]
-    #[target_feature(enable = "avx512f")]
-    unsafe fn avx512(w: &[u64]) -> bool {
-        use std::arch::x86_64::*;
-        // Steps i → i+1 for i in 0..n, 32 at a time in four 8-wide unsigned compares of
-        // w[i..i+8] with w[i+1..i+9] (unaligned loads), their masks OR-ed; the rest plainly.
-        let n = w.len() - 1;
-        let p = w.as_ptr();
-        let mut any = 0u8;
-        let mut i = 0;
-        while i + 32 <= n {
-            let m = |j: usize| {
-                let x = _mm512_loadu_si512(p.add(i + j) as *const __m512i);
-                let y = _mm512_loadu_si512(p.add(i + j + 1) as *const __m512i);
-                _mm512_cmplt_epu64_mask(y, x)
-            };
-            any |= m(0) | m(8) | m(16) | m(24);
-            i += 32;
-        }
-        any != 0 || plain(&w[i..])
-    }
-    if w.len() < 2 {
-        return false;
-    }
-    #[cfg(target_arch = "x86_64")]
-    if std::arch::is_x86_feature_detected!("avx512f") {
-        // SAFETY: the CPU has AVX-512F (checked just above).
-        return unsafe { avx512(w) };
-    }
-    #[cfg(target_arch = "x86_64")]
-    if std::arch::is_x86_feature_detected!("avx2") {
-        // SAFETY: the CPU has AVX2 (checked just above).
-        return unsafe { avx2(w) };
-    }
-    plain(w)
-}
-
 /// Add a hint when the values around the failure, byte-swapped, rise steadily.
 fn swap_hint(e: Error, times: &[u64], i: usize) -> Error {
     let w = &times[i.saturating_sub(2048)..(i + 2048).min(times.len())];
@@ -159,13 +109,6 @@ pub fn channels_unchecked<'a>(map: &'a Mapping, sections: &[Section]) -> Result<
             Ok(ChannelTags { channel: s.channel, name: s.name.clone(), times_ps: times, order_checked: false })
         })
         .collect()
-}
-
-/// Whether `w` is ascending (equal values allowed) and below [`MAX_PS`]: the strict
-/// reader's check as one yes/no, for the engine's fused pass (which, on a no, has the
-/// reader locate the failure).
-pub fn ascending_below_limit(w: &[u64]) -> bool {
-    !descends(w) && w.last().is_none_or(|&t| t < MAX_PS)
 }
 
 /// Time-aligned chunks over `sections`: each channel reads a window of at most
@@ -241,29 +184,5 @@ impl Iterator for SectionChunks<'_> {
         let r = self.next_chunk().transpose();
         self.failed = matches!(r, Some(Err(_)));
         r
-    }
-}
-
-#[cfg(test)]
-mod tests {
-    use super::descends;
-
-    #[test]
-    fn vector_descent_test_equals_the_plain_comparison() {
-        // Against the definition (any w[i+1] < w[i]), on ascending runs of every length up
-        // to 100 with one descent placed at each step in turn, with equal neighbours and
-        // with values above 2^63 (where a signed compare would be wrong).
-        let naive = |w: &[u64]| w.windows(2).any(|p| p[1] < p[0]);
-        for len in 0..100usize {
-            let base: Vec<u64> = (0..len as u64).map(|i| (1 << 63) - 50 + i / 2 * 3).collect();
-            assert_eq!(descends(&base), naive(&base), "len {len}");
-            assert!(!descends(&base));
-            for i in 1..len {
-                let mut w = base.clone();
-                w[i] = w[i - 1] - 1;
-                assert_eq!(descends(&w), naive(&w), "len {len}, descent at {i}");
-                assert!(descends(&w));
-            }
-        }
     }
 }

@@ -3,7 +3,7 @@
 
 use super::{block_seed, simulate_block_reporting, BlockPlan, DetectorModel, SourceModel};
 use crate::manifest::{BlockSpec, ChannelSpec, InputFormat, Manifest, Role, Roles, Settings, Setup, MANIFEST_VERSION};
-use crate::progress::Progress;
+use crate::sys::progress::Progress;
 use crate::read::{channel_array, container, layout::RecordLayout, records};
 use crate::{Channel, ChannelTags, Error, Result};
 use std::collections::BTreeMap;
@@ -143,7 +143,7 @@ pub fn write_run(cfg: &RunConfig, out_dir: &Path, force: bool, progress: &Progre
     let manifest_path = out_dir.join(MANIFEST_FILE);
     check_outputs(cfg, out_dir, &manifest_path, force)?;
     // All files appear together at the end: an interrupted or failed run leaves none.
-    let batch = crate::output::atomic::OutputBatch::begin();
+    let batch = crate::sys::atomic::OutputBatch::begin();
     let layout = RecordLayout::from_spec(RECORDS_LAYOUT_SPEC)?;
     let mut blocks = Vec::with_capacity(cfg.blocks.len());
     for (k, plan) in cfg.blocks.iter().enumerate() {

@@ -2,7 +2,7 @@
 //! and renamed into place only when complete. Temporaries are removed on error, on drop
 //! and (through [`cleanup_all`]) from the Ctrl-C/SIGTERM handler. An [`OutputBatch`] holds
 //! the renames of a multi-file job (a simulated run) until the whole job is done. Each
-//! temporary being written is also on the SIGBUS guard's lock-free list ([`crate::guard`]),
+//! temporary being written is also on the SIGBUS guard's lock-free list ([`super::guard`]),
 //! which unlinks it from a signal handler.
 
 use crate::{Error, Result};
@@ -38,7 +38,7 @@ pub struct AtomicOutput {
     committed: bool,
     /// Keeps the temporary on the SIGBUS guard's unlink list until commit or drop.
     #[cfg(unix)]
-    _guard: crate::guard::TempToken,
+    _guard: super::guard::TempToken,
 }
 
 impl AtomicOutput {
@@ -77,7 +77,7 @@ impl AtomicOutput {
         Ok(AtomicOutput {
             final_path: final_path.to_path_buf(),
             #[cfg(unix)]
-            _guard: crate::guard::register_temp(&temp_path),
+            _guard: super::guard::register_temp(&temp_path),
             temp_path,
             committed: false,
         })
