@@ -141,11 +141,11 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
         pairs: pairs.clone(),
         delays: delays.clone(),
         window_ps: 1,
-        offsets_ps: accidentals::default_offsets_ps(3000),
+        offsets_ps: vec![],
         slice_ps: DEFAULT_SLICE_PS,
     };
     let windows = sweep::window_range(50, 3000, 50)?;
-    let sweep_block = pipeline::sweep_sources("ab", &ab_sources, &base, &windows, Criterion::MaxNetSignificance, PassMode::Auto, true)?;
+    let sweep_block = pipeline::sweep_sources("ab", &ab_sources, &base, &windows, &sweep::OffPeak::PerWindow, Criterion::MaxNetSignificance, PassMode::Auto, true)?;
     // One window for all four pairs: the widest of their recommendations keeps every peak.
     let window_ps = sweep_block.sweeps.iter().map(|s| s.recommended_window_ps).max().unwrap_or(1000);
 

@@ -91,22 +91,24 @@ pub fn count_sources(label: &str, sources: &[Box<dyn TagSource>], cfg: &CountCon
 }
 
 /// Window sweep of one block.
+#[allow(clippy::too_many_arguments)] // each is one independent choice of the sweep; a struct would only rename them
 pub fn sweep_sources(
     label: &str,
     sources: &[Box<dyn TagSource>],
     cfg: &CountConfig,
     windows_ps: &[u64],
+    offpeak: &sweep::OffPeak,
     criterion: Criterion,
     mode: PassMode,
     quiet: bool,
 ) -> Result<BlockTables> {
     let progress = Progress::bytes("sweep", total_bytes(sources), quiet);
     let block = if mode.streams(sources)? {
-        let (span, channels, sweeps) = sweep::sweep_stream(chunks_with_progress(sources[0].as_ref(), &progress)?, cfg, windows_ps, criterion)?;
+        let (span, channels, sweeps) = sweep::sweep_stream(chunks_with_progress(sources[0].as_ref(), &progress)?, cfg, windows_ps, offpeak, criterion)?;
         streamed_block(label, span, &channels, &cfg.delays, |b| b.sweeps = sweeps)
     } else {
         let tags = read::all_channels_order_deferred(sources)?;
-        let sweeps = read::locate_disorder(engine::sweep_block(&tags, cfg, windows_ps, criterion), sources)?;
+        let sweeps = read::locate_disorder(engine::sweep_block(&tags, cfg, windows_ps, offpeak, criterion), sources)?;
         summary_block(label, &tags, &cfg.delays, |b| b.sweeps = sweeps)
     };
     progress.finish();
