@@ -119,7 +119,8 @@ impl AccidentalArgs {
 /// Where tables go.
 #[derive(clap::Args, Debug, Clone)]
 pub struct OutputArgs {
-    /// Output file for the tables (`-` = stdout, CSV/JSON only).
+    /// Output file for the tables (`-` = stdout, CSV/JSON only); a directory with
+    /// `--format csv-dir`.
     #[arg(short = 'o', long = "output", value_name = "FILE")]
     pub output: Option<PathBuf>,
     /// Table format.

@@ -547,8 +547,13 @@ Layout version {LAYOUT_VERSION} (root attribute `layout_version`).
   (`tool_version`), the full command line and the UTC creation time; `/provenance/inputs` lists every input file with its size and XXH3-64 checksum.
 - `tagsieve chsh` adds `/chsh`, `/visibility` and `/bell3` beside `/blocks` (documented
   below from a sample); `points_{basis}` is one table per fitted basis.
-- CSV output holds the same tree: `# group /path` and `# table /path` comment lines,
-  attributes as `# key = value`, a header of `name [unit]` cells. JSON output nests
+- CSV output (`--format csv`) holds the same tree in one file: `# group /path` and
+  `# table /path` comment lines, attributes as `# key = value`, a header of `name [unit]`
+  cells. `--format csv-dir -o DIR` writes one plain CSV per table instead, at the table's
+  path (`DIR/blocks/{label}/singles.csv`, `DIR/blocks/{label}/scans/{a}-{b}.csv`): one
+  header line of the column names above, no comment lines, the rows (a histogram's last
+  `counts` cell is empty); `DIR/attributes.json` holds every group's and table's attributes
+  (provenance at `/`) and each column's unit, type and row count. JSON output nests
   `{\"attrs\", \"tables\", \"groups\"}` objects; a table is `{\"attrs\", \"columns\"}` and a column
   `{\"unit\", \"dtype\", \"data\"}`; NaN and infinities become `null`.
 ";
