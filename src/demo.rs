@@ -40,7 +40,10 @@ pub struct DemoSummary {
     pub delays: Vec<FoundDelay>,
     /// FWHM of each Alice–Bob pair's peak (fine scan), ps.
     pub fwhm_ps: Vec<((Channel, Channel), f64)>,
+    /// The window used for every count: the widest of the pairs' recommendations.
     pub window_ps: u64,
+    /// Each Alice–Bob pair's recommended window from the sweep (largest net/σ), ps.
+    pub recommended_ps: Vec<((Channel, Channel), u64)>,
     /// CAR of each Alice–Bob pair in block ab at the chosen window.
     pub car: Vec<((Channel, Channel), f64)>,
     pub s_raw: (f64, f64),
@@ -143,11 +146,11 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
         pairs: pairs.clone(),
         delays: delays.clone(),
         window_ps: 1,
-        offsets_ps: accidentals::default_offsets_ps(3000),
+        offsets_ps: vec![],
         slice_ps: DEFAULT_SLICE_PS,
     };
     let windows = sweep::window_range(50, 3000, 50)?;
-    let sweep_block = pipeline::sweep_sources("ab", &ab_sources, &base, &windows, Criterion::MaxNetSignificance, PassMode::Auto, true)?;
+    let sweep_block = pipeline::sweep_sources("ab", &ab_sources, &base, &windows, &sweep::OffPeak::PerWindow, Criterion::MaxNetSignificance, PassMode::Auto, true)?;
     // One window for all four pairs: the widest of their recommendations keeps every peak.
     let window_ps = sweep_block.sweeps.iter().map(|s| s.recommended_window_ps).max().unwrap_or(1000);
 
@@ -177,14 +180,14 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
     plot::plot_correlations(&report, Some(plot::ModelLine { visibility: run.source.visibility, source: "simulated" }), &p, true)?;
     plots.push(p);
 
-    let mut all_blocks = vec![coarse_block.clone(), fine_block.clone(), sweep_block.clone()];
-    for (b, label) in all_blocks.iter_mut().zip(["scan_wide", "scan_fine", "sweep"]) {
-        b.label = format!("ab_{label}");
+    // Scans and the sweep go to /scans and /sweeps; /blocks holds the counted blocks.
+    let mut scan_blocks = vec![coarse_block.clone(), fine_block.clone()];
+    for (b, label) in scan_blocks.iter_mut().zip(["ab_wide", "ab_fine"]) {
+        b.label = label.into();
     }
-    all_blocks.extend(blocks);
     let run_h5 = dir.join("run.h5");
     let prov = demo_provenance(&summary.manifest, &files, window_ps, &delays)?;
-    let mut doc = layout::run_document(&all_blocks, &prov);
+    let mut doc = layout::run_document_parts(&blocks, &scan_blocks, std::slice::from_ref(&sweep_block), &prov);
     doc.root.groups.push(layout_analysis::chsh_group(&report));
     output::write_document(&doc, Some(&run_h5), Format::Hdf5, true)?;
 
@@ -221,6 +224,7 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
         delays: delays.by_channel.iter().map(|(&c, &d)| FoundDelay { channel: c, found_ps: d, true_ps: truth(c) }).collect(),
         fwhm_ps: fine_block.scans.iter().filter_map(|s| s.peak.map(|p| ((s.a, s.b), p.fwhm_ps))).collect(),
         window_ps,
+        recommended_ps: sweep_block.sweeps.iter().map(|s| ((s.a, s.b), s.recommended_window_ps)).collect(),
         car,
         s_raw: (primary.s, primary.sigma),
         s_corrected: report.corrected.as_ref().map(|c| (c.primary().s, c.primary().sigma)),

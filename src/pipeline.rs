@@ -148,11 +148,13 @@ pub fn count_sources(label: &str, sources: &[Box<dyn TagSource>], cfg: &CountCon
 }
 
 /// Window sweep of one block.
+#[allow(clippy::too_many_arguments)] // each is one independent choice of the sweep; a struct would only rename them
 pub fn sweep_sources(
     label: &str,
     sources: &[Box<dyn TagSource>],
     cfg: &CountConfig,
     windows_ps: &[u64],
+    offpeak: &sweep::OffPeak,
     criterion: Criterion,
     mode: PassMode,
     quiet: bool,
@@ -160,12 +162,12 @@ pub fn sweep_sources(
     let check = DelayCheck::before(sources, &cfg.delays, &cfg.pairs, true)?;
     let progress = Progress::bytes("sweep", total_bytes(sources), quiet);
     let block = if mode.streams(sources)? {
-        let r = sweep::sweep_stream(chunks_with_progress(sources[0].as_ref(), &progress)?, cfg, windows_ps, criterion);
+        let r = sweep::sweep_stream(chunks_with_progress(sources[0].as_ref(), &progress)?, cfg, windows_ps, offpeak, criterion);
         let (span, channels, sweeps) = read::locate_disorder_streamed(r, sources[0].as_ref())?;
         streamed_block(label, span, &channels, &cfg.delays, |b| b.sweeps = sweeps)
     } else {
         let tags = read::all_channels_order_deferred(sources)?;
-        let sweeps = read::locate_disorder(engine::sweep_block(&tags, cfg, windows_ps, criterion), sources)?;
+        let sweeps = read::locate_disorder(engine::sweep_block(&tags, cfg, windows_ps, offpeak, criterion), sources)?;
         summary_block(label, &tags, &cfg.delays, |b| b.sweeps = sweeps)
     };
     progress.finish();

@@ -1,6 +1,6 @@
 //! Engine statistics against outside formulas, and thread-count independence.
 
-use tagsieve::engine::{self, accidentals, CountConfig, Criterion, Delays, ScanConfig};
+use tagsieve::engine::{self, accidentals, sweep, CountConfig, Criterion, Delays, ScanConfig};
 use tagsieve::ChannelTags;
 
 mod common;
@@ -98,7 +98,7 @@ fn results_are_identical_for_1_2_and_16_threads() {
     let cfg = CountConfig { pairs: vec![], delays: delays.clone(), window_ps: 1000, offsets_ps: accidentals::default_offsets_ps(1000), slice_ps: 50_000_000_000 };
     let run = || {
         let block = engine::count_block("x", &tags, &cfg).unwrap();
-        let sweep = engine::sweep_block(&tags, &cfg, &[100, 200, 500, 1000, 2000], Criterion::MaxNetSignificance).unwrap();
+        let sweep = engine::sweep_block(&tags, &cfg, &[100, 200, 500, 1000, 2000], &sweep::OffPeak::PerWindow, Criterion::MaxNetSignificance).unwrap();
         let scan = engine::scan_block(&tags, &ScanConfig { pairs: vec![], delays: Delays::default(), half_range_ps: 100_000, bin_ps: 50 }).unwrap();
         (block, sweep, scan)
     };

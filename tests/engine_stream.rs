@@ -59,9 +59,11 @@ proptest! {
         prop_assert_eq!(format!("{whole:?}"), format!("{streamed:?}"));
 
         let windows = [window, window + 7, 2 * window];
-        let sw = engine::sweep_block(&tags, &cfg, &windows, Criterion::MaxNetSignificance).unwrap();
-        let (_, _, ss) = sweep::sweep_stream(chunks.clone().into_iter().map(Ok), &cfg, &windows, Criterion::MaxNetSignificance).unwrap();
-        prop_assert_eq!(format!("{sw:?}"), format!("{ss:?}"));
+        for offpeak in [sweep::OffPeak::Fixed(cfg.offsets_ps.clone()), sweep::OffPeak::PerWindow] {
+            let sw = engine::sweep_block(&tags, &cfg, &windows, &offpeak, Criterion::MaxNetSignificance).unwrap();
+            let (_, _, ss) = sweep::sweep_stream(chunks.clone().into_iter().map(Ok), &cfg, &windows, &offpeak, Criterion::MaxNetSignificance).unwrap();
+            prop_assert_eq!(format!("{sw:?}"), format!("{ss:?}"));
+        }
 
         let scfg = ScanConfig { pairs: vec![], delays, half_range_ps: 400, bin_ps: 7 };
         let hw = engine::scan_block(&tags, &scfg).unwrap();

@@ -95,7 +95,7 @@ fn containers_refuse_a_step_backwards_in_any_channel_at_every_position_and_chunk
             } else {
                 [ChannelTags::owned(1, "", one.clone()), ChannelTags::owned(2, "", bad)]
             };
-            let p = d.path().join(format!("c{broken}-{i}.sieve"));
+            let p = d.path().join(format!("c{broken}-{i}.tsieve"));
             write_container(&p, &chans, 1.0, "order test").unwrap();
             for mmap in [true, false] {
                 let c = Container::open(&p, opts(mmap)).unwrap();

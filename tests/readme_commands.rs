@@ -80,7 +80,7 @@ fn demo_from_a_fresh_clone_writes_what_its_summary_says() {
     assert!(stdout.contains(&format!("S = {s:.4} ± {sig:.4} (raw)")), "S {s} ± {sig} not in summary:\n{stdout}");
     let ab = doc.root.group("blocks").and_then(|b| b.group("ab")).expect("/blocks/ab");
     let Some(AttrValue::U64(w)) = ab.attr("window_ps") else { panic!("window_ps") };
-    assert!(stdout.contains(&format!("window chosen by sweep (largest net/σ): {w} ps")), "window {w}:\n{stdout}");
+    assert!(stdout.contains(&format!("window: {w} ps, the widest of the pairs' sweep recommendations")), "window {w}:\n{stdout}");
     let delays = ab.table("delays").expect("delays table");
     let (Some(ColumnData::U64(ch)), Some(ColumnData::I64(ps))) =
         (delays.column("channel").map(|c| &c.data), delays.column("delay_ps").map(|c| &c.data))

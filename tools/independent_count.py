@@ -75,6 +75,9 @@ def check_singles(block, tags, diffs):
 
 
 def check_coincidences(block, tags, delays, window_ps, diffs):
+    if "coincidences" not in block:
+        diffs.append("coincidences: the file has no such table")
+        return
     c = block["coincidences"]
     n = c["a"].shape[0]
     if n == 0:

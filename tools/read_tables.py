@@ -40,9 +40,12 @@ def main(path):
         for label, block in f["blocks"].items():
             window = block.attrs.get("window_ps", "none")
             print(f"block {label} (window {window} ps, span {block.attrs.get('span_s', 0.0):.3f} s)")
+            # Tables with no rows are not written (docs/hdf5-layout.md): a scan has no
+            # coincidences, a count no scans.
             print_table("singles", block["singles"])
-            print_table("coincidences", block["coincidences"])
-            for pair, scan in block["scans"].items():
+            if "coincidences" in block:
+                print_table("coincidences", block["coincidences"])
+            for pair, scan in block.get("scans", {}).items():
                 print(f"  scan {pair}: {scan['counts'].shape[0]} bins, peak at {scan.attrs.get('peak_delay_ps', 'n/a')} ps")
 
 

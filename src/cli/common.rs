@@ -81,8 +81,9 @@ pub fn parse_pairs(specs: &[String]) -> Result<Vec<(Channel, Channel)>> {
 #[derive(clap::Args, Debug, Clone)]
 pub struct AccidentalArgs {
     /// Offsets from the peak of the off-peak windows for the measured accidentals, ps
-    /// (comma-separated); default ten windows side by side, five each side, the nearest
-    /// centred ±2 µs away (±(2 µs + k·W), k = 0…4, W = 2⌊w/2⌋+1 ps).
+    /// (comma-separated); default ten windows side by side, five each side, centred at
+    /// ±(max(2 µs, 2W) + k·W), k = 0…4, W = 2⌊w/2⌋+1 ps (so the nearest sits 2 µs away
+    /// for w < 1 µs and 2W away above); `sweep` places each window's own.
     #[arg(long, value_delimiter = ',', allow_hyphen_values = true, value_name = "PS")]
     pub acc_offsets_ps: Vec<i64>,
     /// Count no off-peak windows: no measured accidentals (NaN in tables, null in JSON),
@@ -105,6 +106,18 @@ impl AccidentalArgs {
             self.acc_offsets_ps.clone()
         }
     }
+    /// Off-peak windows of a sweep: the offsets given on every row, or each window's own
+    /// defaults.
+    pub fn sweep_offpeak(&self) -> tagsieve::engine::sweep::OffPeak {
+        use tagsieve::engine::sweep::OffPeak;
+        if self.no_offpeak {
+            OffPeak::Fixed(vec![])
+        } else if self.acc_offsets_ps.is_empty() {
+            OffPeak::PerWindow
+        } else {
+            OffPeak::Fixed(self.acc_offsets_ps.clone())
+        }
+    }
     pub fn slice_ps(&self) -> Result<u64> {
         if !(self.slice_s.is_finite() && self.slice_s > 0.0) {
             return Err(Error::Usage(format!("--slice-s {}: must be > 0 s", self.slice_s)));
@@ -116,7 +129,8 @@ impl AccidentalArgs {
 /// Where tables go.
 #[derive(clap::Args, Debug, Clone)]
 pub struct OutputArgs {
-    /// Output file for the tables (`-` = stdout, CSV/JSON only).
+    /// Output file for the tables (`-` = stdout, CSV/JSON only); a directory with
+    /// `--format csv-dir`.
     #[arg(short = 'o', long = "output", value_name = "FILE")]
     pub output: Option<PathBuf>,
     /// Table format.

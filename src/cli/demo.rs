@@ -44,7 +44,8 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     for ((a, b), f) in &s.fwhm_ps {
         println!("  pair {a}:{b} peak FWHM {}", common::ps(*f));
     }
-    println!("window chosen by sweep (largest net/σ): {}", common::ps(s.window_ps as f64));
+    let each: Vec<String> = s.recommended_ps.iter().map(|((a, b), w)| format!("{a}:{b} {}", common::ps(*w as f64))).collect();
+    println!("window: {}, the widest of the pairs' sweep recommendations (largest net/σ: {})", common::ps(s.window_ps as f64), each.join(", "));
     let cars: Vec<String> = s.car.iter().map(|((a, b), c)| format!("{a}:{b} {c:.0}")).collect();
     println!("CAR in block ab: {}", cars.join(", "));
     println!("S = {:.4} ± {:.4} (raw), {}", s.s_raw.0, s.s_raw.1, s.verdict);

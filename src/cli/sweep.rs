@@ -66,12 +66,13 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         pairs: args.pairs.pairs()?,
         delays: args.pairs.delays()?,
         window_ps: *windows.iter().max().unwrap_or(&1),
-        offsets_ps: args.acc.offsets_ps(*windows.iter().max().unwrap_or(&1)),
+        offsets_ps: vec![],
         slice_ps: args.acc.slice_ps()?,
     };
     let mode = args.input.mode()?;
     let sources = super::open(&args.input, g)?;
-    let block = pipeline::sweep_sources(&args.label, &sources, &cfg, &windows, crit, mode, g.quiet)?;
+    let offpeak = args.acc.sweep_offpeak();
+    let block = pipeline::sweep_sources(&args.label, &sources, &cfg, &windows, &offpeak, crit, mode, g.quiet)?;
     if let Some(plot) = &args.plot {
         for s in &block.sweeps {
             tagsieve::output::plot::plot_sweep(s, &super::per_pair_path(plot, s.a, s.b, block.sweeps.len()), true)?;
@@ -83,7 +84,7 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
             .param("windows_ps", AttrValue::Str(format!("{windows:?}")))
             .param("criterion", AttrValue::Str(crit.name()))
             .param("slice_ps", AttrValue::U64(cfg.slice_ps))
-            .param("acc_offsets_ps", AttrValue::Str(format!("{:?}", cfg.offsets_ps)));
+            .param("acc_offsets_ps", AttrValue::Str(offpeak_text(&offpeak)));
         let p = super::add_inputs(p, &sources)?;
         super::write_tables(std::slice::from_ref(&block), p, vec![], out, &args.out)?;
     }
@@ -91,6 +92,14 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         print_sweep(&block, g);
     }
     Ok(())
+}
+
+/// The off-peak offsets as a provenance value: the list, or the per-window rule.
+fn offpeak_text(offpeak: &sweep::OffPeak) -> String {
+    match offpeak {
+        sweep::OffPeak::Fixed(v) => format!("{v:?}"),
+        sweep::OffPeak::PerWindow => "per window w: ±(max(2000000, 2W) + k·W), k = 0…4, W = 2⌊w/2⌋+1".into(),
+    }
 }
 
 fn print_sweep(block: &BlockTables, g: &Global) {

@@ -17,6 +17,9 @@ pub enum PairTask {
     Histogram { half_range_ps: u64, bin_ps: u64 },
     /// Window profiles at each shift c, up to `max_half_ps`.
     Profile { centres_ps: Vec<i64>, max_half_ps: u64 },
+    /// Several tasks over the same events, in order (a sweep's peak profile and each
+    /// window's own off-peak counts).
+    Several(Vec<PairTask>),
 }
 
 /// A task's accumulated result.
@@ -25,6 +28,7 @@ pub enum PairResult {
     Count(Vec<WindowCount>),
     Histogram(Vec<u64>),
     Profile(Vec<Vec<u64>>),
+    Several(Vec<PairResult>),
 }
 
 impl PairTask {
@@ -39,6 +43,9 @@ impl PairTask {
             PairTask::Count { centres_ps, half_ps } => around(centres_ps, *half_ps),
             PairTask::Profile { centres_ps, max_half_ps } => around(centres_ps, *max_half_ps),
             PairTask::Histogram { half_range_ps, .. } => (delta - *half_range_ps as i64, delta + *half_range_ps as i64),
+            PairTask::Several(tasks) => {
+                tasks.iter().map(|t| t.reach(delta)).fold((delta, delta), |(lo, hi), (l, h)| (lo.min(l), hi.max(h)))
+            }
         }
     }
 
@@ -49,6 +56,7 @@ impl PairTask {
             PairTask::Profile { centres_ps, max_half_ps } => {
                 PairResult::Profile(vec![vec![0; 2 * (*max_half_ps as usize + 1)]; centres_ps.len()])
             }
+            PairTask::Several(tasks) => PairResult::Several(tasks.iter().map(PairTask::empty_result).collect()),
         }
     }
 
@@ -81,6 +89,17 @@ impl PairTask {
                     unchecked = Unchecked::default();
                 }
                 if centres_ps.is_empty() {
+                    check_alone(a, b, unchecked)?;
+                }
+            }
+            (PairTask::Several(tasks), PairResult::Several(vs)) => {
+                // The first task checks the order; the later ones read checked data.
+                let mut unchecked = unchecked;
+                for (t, v) in tasks.iter().zip(vs.iter_mut()) {
+                    t.run_checked(a, b, delta, unchecked, v)?;
+                    unchecked = Unchecked::default();
+                }
+                if tasks.is_empty() {
                     check_alone(a, b, unchecked)?;
                 }
             }

@@ -6,7 +6,7 @@ use super::count::{
     PairOutcome,
 };
 use super::kernels::WindowCount;
-use super::rule;
+use super::{accidentals, rule};
 use super::stream::{ChannelSummary, PairResult, PairTask, Streamer};
 use super::tables::{BlockSpan, SweepTable};
 use crate::{ChannelTags, Error, Result};
@@ -31,6 +31,28 @@ impl Criterion {
     }
 }
 
+/// Where each swept window's off-peak windows sit.
+#[derive(Debug, Clone, PartialEq)]
+pub enum OffPeak {
+    /// Each window w at its own default offsets, [`accidentals::default_offsets_ps`]`(w)`:
+    /// ±(max(2 µs, 2W) + k·W), k = 0…4, W = 2⌊w/2⌋+1. A row then equals `count` at that
+    /// window, and its K = 10 off-peak windows tile a stretch of background side by side
+    /// as the count's do (the default).
+    PerWindow,
+    /// The same offsets for every row (given by the user; empty = no measured accidentals).
+    Fixed(Vec<i64>),
+}
+
+impl OffPeak {
+    /// The offsets a row of window `window_ps` uses.
+    pub fn offsets_ps(&self, window_ps: u64) -> Vec<i64> {
+        match self {
+            OffPeak::PerWindow => accidentals::default_offsets_ps(window_ps),
+            OffPeak::Fixed(v) => v.clone(),
+        }
+    }
+}
+
 /// Windows from `start` to `stop` (inclusive) in steps of `step`, ps.
 pub fn window_range(start_ps: u64, stop_ps: u64, step_ps: u64) -> Result<Vec<u64>> {
     if step_ps == 0 || start_ps == 0 || stop_ps < start_ps {
@@ -45,49 +67,77 @@ pub fn window_range(start_ps: u64, stop_ps: u64, step_ps: u64) -> Result<Vec<u64
     Ok((0..n).map(|i| start_ps + i * step_ps).collect())
 }
 
-/// Sweep every pair of a block (whole-file path). `base.window_ps` is ignored.
-pub fn sweep_block(tags: &[ChannelTags<'_>], base: &CountConfig, windows_ps: &[u64], criterion: Criterion) -> Result<Vec<SweepTable>> {
-    let windows = check_windows(windows_ps, base)?;
+/// Sweep every pair of a block (whole-file path). `base.window_ps` and `base.offsets_ps`
+/// are ignored: `offpeak` places each row's off-peak windows.
+pub fn sweep_block(
+    tags: &[ChannelTags<'_>],
+    base: &CountConfig,
+    windows_ps: &[u64],
+    offpeak: &OffPeak,
+    criterion: Criterion,
+) -> Result<Vec<SweepTable>> {
+    let windows = check_windows(windows_ps, offpeak)?;
     let span = block_span(tags).ok_or_else(|| Error::Usage("sweep: every channel is empty".into()))?;
     let pairs = resolve_pairs(tags, &base.pairs)?;
-    let results = super::count::run_pairs(tags, &pairs, &base.delays, &profile_task(&windows, base))?;
+    let results = super::count::run_pairs(tags, &pairs, &base.delays, &sweep_task(&windows, offpeak))?;
     let channels = summaries(tags, span, base.slice_ps);
-    Ok(results.iter().map(|r| sweep_table(r, &channels, span, base, &windows, criterion)).collect())
+    Ok(results.iter().map(|r| sweep_table(r, &channels, span, base, &windows, offpeak, criterion)).collect())
 }
 
 /// Sweep from chunks in time order (bounded memory); equal to [`sweep_block`].
-pub fn sweep_stream<'a, I>(chunks: I, base: &CountConfig, windows_ps: &[u64], criterion: Criterion) -> Result<(BlockSpan, Vec<ChannelSummary>, Vec<SweepTable>)>
+pub fn sweep_stream<'a, I>(
+    chunks: I,
+    base: &CountConfig,
+    windows_ps: &[u64],
+    offpeak: &OffPeak,
+    criterion: Criterion,
+) -> Result<(BlockSpan, Vec<ChannelSummary>, Vec<SweepTable>)>
 where
     I: Iterator<Item = Result<Vec<ChannelTags<'a>>>>,
 {
-    let windows = check_windows(windows_ps, base)?;
-    let mut s = Streamer::new(profile_task(&windows, base), base.pairs.clone(), base.delays.clone(), base.slice_ps);
+    let windows = check_windows(windows_ps, offpeak)?;
+    let mut s = Streamer::new(sweep_task(&windows, offpeak), base.pairs.clone(), base.delays.clone(), base.slice_ps);
     for chunk in chunks {
         s.push(&chunk?)?;
     }
     let (span, channels, results) = finish_stream(s, "sweep", &base.pairs)?;
-    let tables = results.iter().map(|r| sweep_table(r, &channels, span, base, &windows, criterion)).collect();
+    let tables = results.iter().map(|r| sweep_table(r, &channels, span, base, &windows, offpeak, criterion)).collect();
     Ok((span, channels, tables))
 }
 
-fn check_windows(windows_ps: &[u64], base: &CountConfig) -> Result<Vec<u64>> {
+fn check_windows(windows_ps: &[u64], offpeak: &OffPeak) -> Result<Vec<u64>> {
     let mut windows = windows_ps.to_vec();
     windows.sort_unstable();
     windows.dedup();
-    let Some(&w_max) = windows.last() else {
+    if windows.is_empty() {
         return Err(Error::Usage("sweep: no windows given".into()));
-    };
+    }
     for &w in &windows {
         rule::check_window(w, "sweep window")?;
+        check_offsets(&offpeak.offsets_ps(w), w)?;
     }
-    check_offsets(&base.offsets_ps, w_max)?;
     Ok(windows)
 }
 
-fn profile_task(windows: &[u64], base: &CountConfig) -> PairTask {
-    let mut centres_ps = vec![0];
-    centres_ps.extend_from_slice(&base.offsets_ps);
-    PairTask::Profile { centres_ps, max_half_ps: rule::half_width_ps(*windows.last().unwrap_or(&0)) }
+/// Fixed offsets: one profile per centre (peak first), read at every half-width. Per-window
+/// offsets: the peak's profile, then one count pass per window at that window's own
+/// offsets (side by side, so each pass costs about two windows' work).
+fn sweep_task(windows: &[u64], offpeak: &OffPeak) -> PairTask {
+    let max_half_ps = rule::half_width_ps(*windows.last().unwrap_or(&0));
+    match offpeak {
+        OffPeak::Fixed(offsets_ps) => {
+            let mut centres_ps = vec![0];
+            centres_ps.extend_from_slice(offsets_ps);
+            PairTask::Profile { centres_ps, max_half_ps }
+        }
+        OffPeak::PerWindow => {
+            let mut tasks = vec![PairTask::Profile { centres_ps: vec![0], max_half_ps }];
+            tasks.extend(
+                windows.iter().map(|&w| PairTask::Count { centres_ps: offpeak.offsets_ps(w), half_ps: rule::half_width_ps(w) }),
+            );
+            PairTask::Several(tasks)
+        }
+    }
 }
 
 fn sweep_table(
@@ -96,20 +146,41 @@ fn sweep_table(
     span: BlockSpan,
     base: &CountConfig,
     windows: &[u64],
+    offpeak: &OffPeak,
     criterion: Criterion,
 ) -> SweepTable {
-    let PairResult::Profile(profiles) = result else { unreachable!("profile task gives profiles") };
-    let peak = Cumulative::new(&profiles[0]);
-    let offs: Vec<Cumulative> = profiles[1..].iter().map(|p| Cumulative::new(p)).collect();
     let products = pair_products(channels, *ca, *cb, span, base.slice_ps);
-    let rows: Vec<_> = windows
-        .iter()
-        .map(|&w| {
-            let h = rule::half_width_ps(w) as usize;
-            let off_counts: Vec<u64> = offs.iter().map(|c| c.at(h).pairs).collect();
-            coincidence_row((*ca, *cb), *delta, w, peak.at(h), &off_counts, &base.offsets_ps, &products)
-        })
-        .collect();
+    let row = |w: u64, peak: &Cumulative, off_counts: &[u64]| {
+        coincidence_row((*ca, *cb), *delta, w, peak.at(rule::half_width_ps(w) as usize), off_counts, &offpeak.offsets_ps(w), &products)
+    };
+    let rows: Vec<_> = match result {
+        PairResult::Profile(profiles) => {
+            let peak = Cumulative::new(&profiles[0]);
+            let offs: Vec<Cumulative> = profiles[1..].iter().map(|p| Cumulative::new(p)).collect();
+            windows
+                .iter()
+                .map(|&w| {
+                    let h = rule::half_width_ps(w) as usize;
+                    let off_counts: Vec<u64> = offs.iter().map(|c| c.at(h).pairs).collect();
+                    row(w, &peak, &off_counts)
+                })
+                .collect()
+        }
+        PairResult::Several(parts) => {
+            let [PairResult::Profile(peak), counts @ ..] = &parts[..] else { unreachable!("sweep task: peak profile first") };
+            let peak = Cumulative::new(&peak[0]);
+            windows
+                .iter()
+                .zip(counts)
+                .map(|(&w, c)| {
+                    let PairResult::Count(c) = c else { unreachable!("sweep task: one count per window") };
+                    let off_counts: Vec<u64> = c.iter().map(|x| x.pairs).collect();
+                    row(w, &peak, &off_counts)
+                })
+                .collect()
+        }
+        _ => unreachable!("sweep task gives profiles"),
+    };
     let recommended_window_ps = recommend(&rows, criterion);
     SweepTable { a: *ca, b: *cb, rel_delay_ps: *delta, rows, recommended_window_ps, criterion: criterion.name() }
 }

@@ -78,7 +78,7 @@ fn write_table(text: &mut String, t: &Table, path: &str) {
 }
 
 /// One cell; empty past the end of a shorter column (histogram edges have one more row).
-fn cell(data: &ColumnData, row: usize) -> String {
+pub(crate) fn cell(data: &ColumnData, row: usize) -> String {
     match data {
         ColumnData::U64(v) => v.get(row).map(|x| x.to_string()),
         ColumnData::I64(v) => v.get(row).map(|x| x.to_string()),
@@ -91,7 +91,7 @@ fn cell(data: &ColumnData, row: usize) -> String {
 
 /// RFC 4180 quoting (fields with comma, quote or line break are quoted, quotes doubled);
 /// a field starting with `#` is quoted too so no data line reads as a comment.
-fn quote(s: &str) -> String {
+pub(crate) fn quote(s: &str) -> String {
     if s.contains([',', '"', '\n', '\r']) || s.starts_with('#') {
         format!("\"{}\"", s.replace('"', "\"\""))
     } else {

@@ -43,7 +43,7 @@ pub fn write_to(doc: &Document, out: &mut dyn Write) -> Result<()> {
 struct JGroup<'a>(&'a Group);
 struct JTable<'a>(&'a Table);
 struct JColumn<'a>(&'a Column);
-struct JAttrs<'a>(&'a [(String, AttrValue)]);
+pub(crate) struct JAttrs<'a>(pub(crate) &'a [(String, AttrValue)]);
 struct JAttr<'a>(&'a AttrValue);
 struct JFloats<'a>(&'a [f64]);
 /// A map of named items, in order.

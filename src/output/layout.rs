@@ -7,12 +7,21 @@ use super::{AttrValue, ColumnData, Document, Group, Table};
 use crate::engine::tables::{BlockSpan, BlockTables, CoincidenceRow, Estimate, PeakFit, ScanResult, SinglesRow, SweepTable};
 use crate::Channel;
 
-/// Bumped whenever a path, dtype or unit below changes.
-pub const LAYOUT_VERSION: u64 = 1;
+/// Bumped whenever a path, dtype or unit below changes. 2: tables with no rows and empty
+/// `scans`/`sweeps` groups are left out; the demo's scan and sweep blocks moved out of
+/// `/blocks` into `/scans` and `/sweeps`.
+pub const LAYOUT_VERSION: u64 = 2;
 
 /// The whole output of a run: provenance at the root, `/provenance/inputs`, and one
 /// group per block under `/blocks/<label>`.
 pub fn run_document(blocks: &[BlockTables], provenance: &Provenance) -> Document {
+    run_document_parts(blocks, &[], &[], provenance)
+}
+
+/// [`run_document`] with delay-scan and window-sweep blocks kept apart from the counted
+/// blocks (the demo): `/scans/<label>` and `/sweeps/<label>`, each laid out like a
+/// `/blocks/<label>` group; either group is left out when it has no blocks.
+pub fn run_document_parts(blocks: &[BlockTables], scans: &[BlockTables], sweeps: &[BlockTables], provenance: &Provenance) -> Document {
     let mut root = Group::new("");
     root.attrs = provenance.to_attrs();
     root.attrs.push(("layout_version".into(), AttrValue::U64(LAYOUT_VERSION)));
@@ -20,8 +29,19 @@ pub fn run_document(blocks: &[BlockTables], provenance: &Provenance) -> Document
     let mut all = Group::new("blocks");
     all.groups = blocks.iter().map(block_group).collect();
     root.groups.push(all);
+    for (name, part) in [(SCAN_BLOCKS, scans), (SWEEP_BLOCKS, sweeps)] {
+        if !part.is_empty() {
+            let mut g = Group::new(name);
+            g.groups = part.iter().map(block_group).collect();
+            root.groups.push(g);
+        }
+    }
     Document { root }
 }
+
+/// Root groups of [`run_document_parts`] for scan and sweep blocks.
+pub const SCAN_BLOCKS: &str = "scans";
+pub const SWEEP_BLOCKS: &str = "sweeps";
 
 /// Group name of a channel pair: `<a>-<b>`.
 pub fn pair_name(a: Channel, b: Channel) -> String {
@@ -29,21 +49,26 @@ pub fn pair_name(a: Channel, b: Channel) -> String {
 }
 
 /// `/blocks/<label>`: span and window attributes, singles, delays, coincidences,
-/// off-peak windows, `scans/<a>-<b>` histograms and `sweeps/<a>-<b>` tables.
+/// off-peak windows, `scans/<a>-<b>` histograms and `sweeps/<a>-<b>` tables. A table with
+/// no rows and a `scans`/`sweeps` group with no tables are left out (a scan has no
+/// coincidences; `--no-offpeak` counts no off-peak windows).
 pub fn block_group(b: &BlockTables) -> Group {
     let mut g = Group::new(b.label.clone());
     g.attrs = block_attrs(b);
-    g.tables = vec![
+    g.tables = [
         singles_table(&b.singles),
         delays_table(&b.delays_ps),
         coincidence_table("coincidences", &b.coincidences),
         off_peak_table(&b.coincidences),
-    ];
+    ]
+    .into_iter()
+    .filter(|t| t.rows() > 0)
+    .collect();
     let mut scans = Group::new("scans");
     scans.tables = b.scans.iter().map(scan_table).collect();
     let mut sweeps = Group::new("sweeps");
     sweeps.tables = b.sweeps.iter().map(sweep_table).collect();
-    g.groups = vec![scans, sweeps];
+    g.groups = [scans, sweeps].into_iter().filter(|s| !s.tables.is_empty()).collect();
     g
 }
 
@@ -367,7 +392,8 @@ fn note_for(kind: EntryKind, path: &str) -> &'static str {
         "sweeps" => "window sweeps, one table per pair",
         "{a}-{b}" if in_scan || parent.ends_with("scans") => "histogram of Δ; fitted peak as attributes",
         "{a}-{b}" => "one row per window swept",
-        "tool" | "tool_version" => "program and version that wrote the file",
+        "tool" => "program that wrote the file (`tagsieve`)",
+        "tool_version" => "version of the program (Cargo package version)",
         "command_line" => "full command line, shell-quoted",
         "created_utc" => "creation time, ISO 8601 UTC",
         "param.{key}" => "one attribute per run parameter (type follows the value)",
@@ -512,12 +538,22 @@ Layout version {LAYOUT_VERSION} (root attribute `layout_version`).
 - A scan whose peak fit failed has `peak_found = 0` and no `peak_*` attributes.
 - Coincidence rule: Δ = (b − d_B) − (a − d_A) in integer ps; a pair counts when 2·|Δ| ≤ w.
   `rel_delay_ps` is d_B − d_A.
-- Provenance: the root attributes name the tool, version, full command line and UTC creation
-  time; `/provenance/inputs` lists every input file with its size and XXH3-64 checksum.
+- A table with no rows is not written (a scan's block has no `coincidences`; `--no-offpeak`
+  leaves out `off_peak_windows`), nor a `scans` or `sweeps` group with no tables.
+- The demo's `run.h5` keeps its delay scans under `/scans/{label}` and its window sweep under
+  `/sweeps/{label}`, each group laid out like `/blocks/{label}`; `/blocks` holds only the
+  counted blocks.
+- Provenance: the root attributes name the tool (`tool`, the program name) and its version
+  (`tool_version`), the full command line and the UTC creation time; `/provenance/inputs` lists every input file with its size and XXH3-64 checksum.
 - `tagsieve chsh` adds `/chsh`, `/visibility` and `/bell3` beside `/blocks` (documented
   below from a sample); `points_{basis}` is one table per fitted basis.
-- CSV output holds the same tree: `# group /path` and `# table /path` comment lines,
-  attributes as `# key = value`, a header of `name [unit]` cells. JSON output nests
+- CSV output (`--format csv`) holds the same tree in one file: `# group /path` and
+  `# table /path` comment lines, attributes as `# key = value`, a header of `name [unit]`
+  cells. `--format csv-dir -o DIR` writes one plain CSV per table instead, at the table's
+  path (`DIR/blocks/{label}/singles.csv`, `DIR/blocks/{label}/scans/{a}-{b}.csv`): one
+  header line of the column names above, no comment lines, the rows (a histogram's last
+  `counts` cell is empty); `DIR/attributes.json` holds every group's and table's attributes
+  (provenance at `/`) and each column's unit, type and row count. JSON output nests
   `{\"attrs\", \"tables\", \"groups\"}` objects; a table is `{\"attrs\", \"columns\"}` and a column
   `{\"unit\", \"dtype\", \"data\"}`; NaN and infinities become `null`.
 ";

@@ -3,6 +3,7 @@
 //! engine types; `layout` turns engine and analysis results into a Document.
 
 pub mod csv;
+pub mod csv_dir;
 pub mod hdf5;
 pub mod json;
 pub mod layout;
@@ -164,8 +165,13 @@ pub trait Writer {
 pub enum Format {
     /// HDF5 file (groups, one dataset per column, `units` attributes).
     Hdf5,
-    /// CSV sections, one per table, attributes as `#` comment lines.
+    /// CSV sections in one file, one per table, attributes as `#` comment lines.
     Csv,
+    /// A directory (`-o DIR`) of plain CSV files, one per table at the table's path
+    /// (`blocks/ab/coincidences.csv`): one header line of column names, no comments; units,
+    /// attributes and provenance in `attributes.json` beside them. Opens as it is in
+    /// pandas or a spreadsheet.
+    CsvDir,
     /// One JSON object: nested groups, columns as arrays with units.
     Json,
 }
@@ -176,6 +182,7 @@ impl Format {
         match self {
             Format::Hdf5 => Box::new(hdf5::Hdf5Writer),
             Format::Csv => Box::new(csv::CsvWriter),
+            Format::CsvDir => Box::new(csv_dir::CsvDirWriter),
             Format::Json => Box::new(json::JsonWriter),
         }
     }
@@ -197,6 +204,7 @@ impl Format {
 /// only with `force` (else [`Error::OutputExists`]). HDF5 cannot go to stdout.
 pub fn write_document(doc: &Document, dest: Option<&Path>, format: Format, force: bool) -> Result<()> {
     match dest {
+        Some(path) if format == Format::CsvDir => csv_dir::write_dir(doc, path, force),
         Some(path) => write_with(doc, path, format.writer().as_ref(), force),
         None => write_stdout(doc, format),
     }
@@ -210,6 +218,9 @@ fn write_stdout(doc: &Document, format: Format) -> Result<()> {
         Format::Json => json::write_to(doc, &mut out),
         Format::Hdf5 => {
             return Err(Error::Usage("HDF5 output cannot go to stdout (-o -); give a file name or --format csv|json".into()))
+        }
+        Format::CsvDir => {
+            return Err(Error::Usage("--format csv-dir writes a directory, not stdout (-o -); give one with -o DIR".into()))
         }
     };
     let r = r.and_then(|()| std::io::Write::flush(&mut out).map_err(|e| Error::io("<stdout>", e)));

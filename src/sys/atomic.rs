@@ -45,30 +45,19 @@ impl AtomicOutput {
     /// Check the destination (its directory exists; it does not exist unless `force`)
     /// and create an empty temporary file beside it.
     pub fn prepare(final_path: &Path, force: bool) -> Result<Self> {
-        let dir = match final_path.parent() {
-            Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
-            _ => PathBuf::from("."),
-        };
-        if !dir.is_dir() {
-            return Err(Error::Usage(format!(
-                "{}: output directory {} does not exist",
-                final_path.display(),
-                dir.display()
-            )));
-        }
+        let dir = output_parent(final_path)?;
         if final_path.is_dir() {
             return Err(Error::Usage(format!("{}: output path is a directory", final_path.display())));
         }
         if final_path.exists() && !force {
             return Err(Error::OutputExists(final_path.to_path_buf()));
         }
-        let stem = final_path.file_name().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default();
         let mut p = pending();
         if p.interrupted {
             return Err(Error::Interrupted);
         }
         let tmp = tempfile::Builder::new()
-            .prefix(&format!(".{stem}."))
+            .prefix(&temp_prefix(final_path))
             .suffix(".partial")
             .tempfile_in(&dir)
             .map_err(|e| Error::io(final_path, e))?;
@@ -122,6 +111,24 @@ impl Drop for AtomicOutput {
     }
 }
 
+/// The directory an output goes into; it must exist.
+fn output_parent(final_path: &Path) -> Result<PathBuf> {
+    let dir = match final_path.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    if !dir.is_dir() {
+        return Err(Error::Usage(format!("{}: output directory {} does not exist", final_path.display(), dir.display())));
+    }
+    Ok(dir)
+}
+
+/// Temporaries are named `.NAME.XXXXXX.partial` beside the output: this is `.NAME.`.
+fn temp_prefix(final_path: &Path) -> String {
+    let stem = final_path.file_name().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default();
+    format!(".{stem}.")
+}
+
 /// Temporaries are created 0600; a finished output gets the usual 0644.
 fn set_readable(p: &Path) {
     #[cfg(unix)]
@@ -156,7 +163,10 @@ pub fn cleanup_all() {
     let mut p = pending();
     p.interrupted = true;
     for t in p.temps.iter() {
-        let _ = std::fs::remove_file(t);
+        if std::fs::remove_file(t).is_err() {
+            // A directory output being written ([`AtomicDir`]).
+            let _ = std::fs::remove_dir_all(t);
+        }
     }
 }
 
@@ -212,6 +222,108 @@ impl Drop for OutputBatch {
             forget_pending(&temp);
         }
     }
+}
+
+/// A directory output being written (one file per table): a temporary directory beside
+/// `final_path`, renamed into place when complete. An existing directory is replaced only
+/// with `force`, and only when it holds `marker` (a file every such output has), so that
+/// `--force` never deletes a directory we did not write.
+#[derive(Debug)]
+pub struct AtomicDir {
+    final_path: PathBuf,
+    temp_path: PathBuf,
+    committed: bool,
+}
+
+impl AtomicDir {
+    pub fn prepare(final_path: &Path, force: bool, marker: &str) -> Result<Self> {
+        let dir = output_parent(final_path)?;
+        if final_path.exists() || final_path.is_symlink() {
+            if !force {
+                return Err(Error::OutputExists(final_path.to_path_buf()));
+            }
+            if !final_path.is_dir() || final_path.is_symlink() || !final_path.join(marker).is_file() {
+                return Err(Error::Usage(format!(
+                    "{}: exists and is not a table directory written by tagsieve (no {marker} in it); not replacing it, even with --force",
+                    final_path.display()
+                )));
+            }
+        }
+        let mut p = pending();
+        if p.interrupted {
+            return Err(Error::Interrupted);
+        }
+        let temp_path = tempfile::Builder::new()
+            .prefix(&temp_prefix(final_path))
+            .suffix(".partial")
+            .tempdir_in(&dir)
+            .map_err(|e| Error::io(final_path, e))?
+            .keep();
+        p.temps.push(temp_path.clone());
+        Ok(AtomicDir { final_path: final_path.to_path_buf(), temp_path, committed: false })
+    }
+
+    /// Where the writer puts its files.
+    pub fn temp_path(&self) -> &Path {
+        &self.temp_path
+    }
+
+    /// Flush every file, then rename the directory into place (moving an old one aside
+    /// first and removing it after).
+    pub fn commit(mut self) -> Result<()> {
+        sync_tree(&self.temp_path).map_err(|e| Error::io(&self.final_path, e))?;
+        #[cfg(unix)]
+        {
+            use std::os::unix::fs::PermissionsExt;
+            let _ = std::fs::set_permissions(&self.temp_path, std::fs::Permissions::from_mode(0o755));
+        }
+        let mut p = pending();
+        if p.interrupted {
+            return Err(Error::Interrupted);
+        }
+        let old = if self.final_path.exists() {
+            let aside = self.temp_path.with_extension("old");
+            std::fs::rename(&self.final_path, &aside).map_err(|e| Error::io(&self.final_path, e))?;
+            Some(aside)
+        } else {
+            None
+        };
+        if let Err(e) = std::fs::rename(&self.temp_path, &self.final_path) {
+            if let Some(old) = &old {
+                let _ = std::fs::rename(old, &self.final_path);
+            }
+            return Err(Error::io(&self.final_path, e));
+        }
+        p.temps.retain(|q| q != &self.temp_path);
+        self.committed = true;
+        drop(p);
+        if let Some(old) = old {
+            let _ = std::fs::remove_dir_all(old);
+        }
+        Ok(())
+    }
+}
+
+impl Drop for AtomicDir {
+    fn drop(&mut self) {
+        if !self.committed {
+            let _ = std::fs::remove_dir_all(&self.temp_path);
+            forget_pending(&self.temp_path);
+        }
+    }
+}
+
+/// fsync every file under `dir`.
+fn sync_tree(dir: &Path) -> std::io::Result<()> {
+    for e in std::fs::read_dir(dir)? {
+        let p = e?.path();
+        if p.is_dir() {
+            sync_tree(&p)?;
+        } else {
+            std::fs::File::open(&p)?.sync_all()?;
+        }
+    }
+    Ok(())
 }
 
 /// Write `bytes` to `final_path` atomically.
