@@ -73,6 +73,11 @@ pub trait TagSource: Send + Sync {
     /// Channel numbers known without reading the data (arrays, container); `None` for
     /// interleaved records, whose channels appear only while demultiplexing.
     fn declared_channels(&self) -> Option<Vec<Channel>>;
+    /// Remarks on the last pass that are not errors (records of unknown kinds skipped, say),
+    /// one line each, for the report.
+    fn notes(&self) -> Vec<String> {
+        Vec::new()
+    }
 }
 
 /// Open the INPUT arguments of one block: `CH=PATH` (or `CH:NAME=PATH`) for per-channel
