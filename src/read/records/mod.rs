@@ -129,6 +129,20 @@ impl Records {
         &self.layout
     }
 
+    /// The same reader with ranges of `range_records` records, `batch_ranges` to a batch
+    /// (tests: make small files take the parallel passes).
+    #[doc(hidden)]
+    pub fn with_ranges(mut self, range_records: u64, batch_ranges: usize) -> Self {
+        (self.range_records, self.batch_ranges) = (range_records.max(1), batch_ranges.max(1));
+        self
+    }
+
+    /// Whether a whole read takes the parallel passes (tests).
+    #[doc(hidden)]
+    pub fn reads_in_parallel(&self) -> bool {
+        self.parallel_body().is_some()
+    }
+
     /// Records of unknown kinds skipped by the last whole pass or so far in a stream
     /// (layouts that skip unknown kinds).
     pub fn skipped_records(&self) -> u64 {

@@ -113,6 +113,16 @@ impl<'a> Demuxer<'a> {
     /// `refill`: give each channel a new vector as large as the one handed out (chunked
     /// reading, where the next chunk has about as many events).
     pub(super) fn take(&mut self, refill: bool) -> Vec<ChannelTags<'static>> {
+        if !self.held.is_empty() {
+            // Tags held back from the previous chunk come first in their channel.
+            for (v, h) in self.slots.times.iter_mut().zip(self.held.iter_mut()) {
+                if !h.is_empty() {
+                    h.append(v);
+                    std::mem::swap(v, h);
+                }
+            }
+            self.held.clear();
+        }
         let mut out: Vec<_> = self
             .slots
             .channels
@@ -206,7 +216,10 @@ impl<'a> Demuxer<'a> {
                     if !keep {
                         continue;
                     }
-                    let s = self.slots.slot_of(channel as u64, self.new_slot_capacity) as usize;
+                    let s = match self.slots.find(channel as u64) {
+                        Some(s) => s,
+                        None => self.slots.slot_of(channel as u64, self.new_slot_capacity) as usize,
+                    };
                     if per_channel {
                         if self.last_ps.len() <= s {
                             self.last_ps.resize(s + 1, 0);
