@@ -50,6 +50,8 @@ pub struct InspectReport {
     pub inputs: Vec<InputFile>,
     pub channels: Vec<ChannelReport>,
     pub totals: Totals,
+    /// Remarks from the readers that are not problems (records of unknown kinds skipped).
+    pub notes: Vec<String>,
 }
 
 impl InspectReport {
@@ -136,6 +138,7 @@ pub fn rate_hz(events: u64, span_ps: u64) -> Option<f64> {
 /// Inspect every source in one pass each (sources opened with `lenient_order`).
 pub fn inspect(sources: &[Box<dyn TagSource>], progress: &Progress) -> Result<InspectReport> {
     let mut accs: BTreeMap<Channel, Acc> = BTreeMap::new();
+    let mut notes = Vec::new();
     for s in sources {
         let source = s.file().path.display().to_string();
         for chunk in s.chunks(CHUNK_EVENTS)? {
@@ -149,10 +152,11 @@ pub fn inspect(sources: &[Box<dyn TagSource>], progress: &Progress) -> Result<In
             }
         }
         s.check_unchanged()?;
+        notes.extend(s.notes());
     }
     let channels: Vec<ChannelReport> = accs.into_values().map(Acc::finish).collect();
     let totals = totals(&channels);
-    Ok(InspectReport { inputs: sources.iter().map(|s| s.file()).collect(), channels, totals })
+    Ok(InspectReport { inputs: sources.iter().map(|s| s.file()).collect(), channels, totals, notes })
 }
 
 fn totals(channels: &[ChannelReport]) -> Totals {
