@@ -44,7 +44,7 @@ def records_structured(layout8, recs):
 def main():
     shutil.rmtree(ROOT, ignore_errors=True)
     put("container", "two_channels", container([(1, "larch_plus", [10, 250, 900]), (3, "rowan_plus", [12, 600])]))
-    put("container", "empty_channel", container([(2, "", []), (7, "x", [5])], tick_fs=80_955))
+    put("container", "empty_channel", container([(2, "", []), (7, "x", [5])], tick_fs=12_345))
     put("container", "no_channels", container([]))
     put("container", "unsorted", container([(4, "u", [30, 20, 10, 40])]))
 
