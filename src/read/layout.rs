@@ -55,12 +55,12 @@ pub struct Field {
 impl Field {
     /// A whole word of `width_bytes` at `offset_bytes`.
     pub fn word(offset_bytes: usize, width_bytes: usize, endian: Endian) -> Field {
-        Field { offset_bytes, width_bytes, endian, shift_bits: 0, bits: 8 * width_bytes as u32, signed: false }
+        Field { offset_bytes, width_bytes, endian, shift_bits: 0, bits: (width_bytes.min(1 << 20) * 8) as u32, signed: false }
     }
 
     /// Whether the field is its whole word (no shift, all bits).
     pub fn is_whole_word(&self) -> bool {
-        self.shift_bits == 0 && self.bits == 8 * self.width_bytes as u32
+        self.shift_bits == 0 && self.bits as usize == self.width_bytes.saturating_mul(8)
     }
 
     /// The mask of the field's bits after the shift.
@@ -440,7 +440,7 @@ impl RecordLayout {
             let shift_bits = f.shift.unwrap_or(0);
             let bits = match f.bits {
                 Some(b) => b,
-                None => (8 * f.width as u64).saturating_sub(shift_bits as u64).min(u32::MAX as u64) as u32,
+                None => (f.width as u64).saturating_mul(8).saturating_sub(shift_bits as u64).min(u32::MAX as u64) as u32,
             };
             Ok(Field { offset_bytes: f.offset, width_bytes: f.width, endian, shift_bits, bits, signed: f.signed.unwrap_or(false) })
         };
@@ -714,7 +714,7 @@ impl RecordLayout {
                     ),
                 ));
             }
-            let word_bits = 8 * f.width_bytes as u64;
+            let word_bits = 8 * f.width_bytes as u64; // 1..=8 bytes, checked just above
             if f.bits == 0 || f.shift_bits as u64 + f.bits as u64 > word_bits {
                 return Err(problem(
                     part,
@@ -818,7 +818,6 @@ fn parse_field_spec(v: &str) -> std::result::Result<Field, String> {
         }
     }
     let mut f = Field::word(n(parts[0])?, n(parts[1])?, endian);
-    f.bits = (8 * f.width_bytes.min(1 << 20)) as u32;
     f.signed = signed;
     if let Some(r) = range {
         let (a, b) = r.split_once("..").ok_or("a bit range is written [FIRST..END], e.g. [56..64]")?;

@@ -293,7 +293,7 @@ impl Carry {
         } else if rules.period > 0 {
             if let Some((before, raw)) = t.last_tag {
                 let e = (self.periods.saturating_add(before) as u128).saturating_mul(rules.period);
-                self.latest = Some(e + raw as u128);
+                self.latest = Some(e.saturating_add(raw as u128));
             }
         } else if let Some(m) = t.max_raw {
             self.latest = Some(self.latest.map_or(m as u128, |x| x.max(m as u128)));

@@ -104,13 +104,23 @@ pub(super) struct Back {
     pub latest: u128,
 }
 
+/// Whether a tag read as `t` ticks in the current epoch is a late tag from before the
+/// last wrap or overflow: its counter lies in the last `tolerance` ticks of a period, and
+/// one period earlier it falls within the tolerance of the latest time `m`.
+#[inline]
+fn late(t: u128, raw: u64, m: u128, epoch: u128, r: &ClockRules) -> bool {
+    let (p, tol) = (r.period, r.tolerance);
+    epoch >= p && t >= p && raw as u128 + tol >= p && t - p + tol >= m
+}
+
 /// The counter state between records: the epoch (ticks added by wraps and overflow
 /// records), the raw counter of the last time tag, and the latest absolute ticks.
 ///
 /// Rules, per time tag with raw counter r and t = epoch + r (docs/formats.md):
 /// - implicit wraps, no tolerance: r below the previous r adds one period (as always);
-/// - implicit wraps with tolerance T: t more than T below the latest adds one period; t at
-///   least a period minus T above the latest is a late tag from before the last wrap;
+/// - implicit wraps with tolerance T: t more than T below the latest adds one period; a
+///   counter in the last T ticks of the period whose time one period earlier lies within T
+///   of the latest is a late tag from before the last wrap ([`late`]);
 /// - otherwise t more than T below the latest is an error (strict), with the same late-tag
 ///   rule after an overflow record when T > 0.
 #[derive(Debug, Clone, Copy, Default)]
@@ -125,7 +135,7 @@ impl Clock {
     #[inline]
     pub(super) fn tag(&mut self, raw: u64, r: &ClockRules) -> Result<u128, Back> {
         let (p, tol) = (r.period, r.tolerance);
-        let mut t = self.epoch + raw as u128;
+        let mut t = self.epoch.saturating_add(raw as u128);
         if r.implicit {
             if tol == 0 {
                 if raw < self.prev_raw {
@@ -133,19 +143,19 @@ impl Clock {
                     t = t.saturating_add(p);
                 }
             } else if let Some(m) = self.latest {
-                if t + tol < m {
+                if t.saturating_add(tol) < m {
                     self.epoch = self.epoch.saturating_add(p);
                     t = t.saturating_add(p);
-                } else if self.epoch >= p && t >= m + p - tol {
+                } else if late(t, raw, m, self.epoch, r) {
                     t -= p;
                 }
             }
             self.prev_raw = raw;
         } else if let Some(m) = self.latest {
-            if tol > 0 && p > 0 && self.epoch >= p && t >= m + p - tol {
+            if tol > 0 && p > 0 && late(t, raw, m, self.epoch, r) {
                 t -= p;
             }
-            if t + tol < m && !r.lenient {
+            if t.saturating_add(tol) < m && !r.lenient {
                 return Err(Back { ticks: t, latest: m });
             }
         }
