@@ -63,7 +63,9 @@ macro_rules! by_fields {
             (2, $crate::read::layout::Endian::Little) => $($f)::+::<$T, $crate::read::records::serial::Le<2>>($($a),*),
             (2, $crate::read::layout::Endian::Big) => $($f)::+::<$T, $crate::read::records::serial::Be<2>>($($a),*),
             (4, $crate::read::layout::Endian::Little) => $($f)::+::<$T, $crate::read::records::serial::Le<4>>($($a),*),
-            _ => $($f)::+::<$T, $crate::read::records::serial::Be<4>>($($a),*),
+            (4, $crate::read::layout::Endian::Big) => $($f)::+::<$T, $crate::read::records::serial::Be<4>>($($a),*),
+            (8, $crate::read::layout::Endian::Little) => $($f)::+::<$T, $crate::read::records::serial::Le<8>>($($a),*),
+            _ => $($f)::+::<$T, $crate::read::records::serial::Be<8>>($($a),*),
         }
     };
 }
@@ -76,10 +78,11 @@ mod wide;
 mod writer;
 
 /// Whether the typed loops take this layout: plain (see [`RecordLayout::is_plain`]) with
-/// a 4- or 8-byte time word and a 1-, 2- or 4-byte channel word. Everything else goes
+/// a 4- or 8-byte time word and a 1-, 2-, 4- or 8-byte channel word (a packed 64-bit
+/// word included). Everything else goes
 /// through the classifying loops.
 pub(crate) fn is_fast(l: &RecordLayout) -> bool {
-    l.is_plain() && matches!(l.time.width_bytes, 4 | 8) && matches!(l.channel.width_bytes, 1 | 2 | 4)
+    l.is_plain() && matches!(l.time.width_bytes, 4 | 8) && matches!(l.channel.width_bytes, 1 | 2 | 4 | 8)
 }
 
 /// An interleaved-record file with its layout.
@@ -517,6 +520,9 @@ mod tests {
             ("rec=16,time=8:8:le,chan=0:4:le,tick_ps=3", 4, 70_000),     // time in the second half, a big channel number
             ("rec=16,time=0:8:le,chan=8:1,tick_ps=1", 11, 7),            // more channels than the wide path takes
             ("rec=12,skip=5,time=0:8:be,chan=8:4:be,tick_ps=12.345", 3, 70_000), // scalar, rounding ticks
+            ("rec=8,time=0:8:le[0..56],chan=0:8:le[56..64],tick_ps=1", 3, 200),  // one packed 64-bit word
+            ("rec=8,time=0:8:be[8..64],chan=0:8:be[0..8],tick_ps=2", 5, 255),    // the same, big-endian
+            ("rec=7,time=0:5:be,chan=5:2:le[3..11],tick_ps=1", 4, 200),         // words the typed loads do not cover
         ];
         for (k, (spec, spread, rare)) in cases.into_iter().enumerate() {
             let l = layout(spec);
