@@ -231,8 +231,7 @@ impl Records {
         let rules = ClockRules::of(l, self.lenient);
         let per_channel = !fast && rules.tolerance > 0 && !self.lenient;
         let saved = (d.prev_raw, d.epoch_ticks, d.clock, d.skipped, d.slots.times.iter().map(Vec::len).collect::<Vec<_>>());
-        let mut carry = Carry { periods: 0, prev_raw: d.clock.prev_raw, latest: d.clock.latest };
-        let start_epoch = d.clock.epoch;
+        let mut carry = Carry { base: d.clock.epoch, periods: 0, prev_raw: d.clock.prev_raw, latest: d.clock.latest };
         let mut wraps = wraps_of(d.epoch_ticks, wrap_period(l));
         let (ranges, per_batch) = (count.div_ceil(per), self.batch_ranges.max(1));
         let mut ok = true;
@@ -251,9 +250,7 @@ impl Records {
                     .iter_mut()
                     .map(|t| {
                         d.skipped += t.skipped;
-                        let mut c = carry.step(t, &rules);
-                        c.epoch = c.epoch.saturating_add(start_epoch);
-                        c
+                        carry.step(t, &rules)
                     })
                     .collect();
                 (rich.into_iter().map(|t| t.tally).collect(), clocks)
@@ -318,7 +315,7 @@ impl Records {
             d.epoch_ticks = ticks::epoch_after(wraps, wrap_period(l));
         } else {
             d.clock = Clock {
-                epoch: start_epoch.saturating_add((carry.periods as u128).saturating_mul(rules.period)),
+                epoch: carry.epoch(&rules),
                 prev_raw: carry.prev_raw,
                 latest: carry.latest,
             };
@@ -570,6 +567,52 @@ mod tests {
             let e = assert_parallel_is_serial(&p, &l, true).unwrap_err();
             assert!(e.contains(&format!("record {late} ")) && e.contains("below 2^62"), "{e}");
         }
+    }
+
+    /// A layout with overflow records: a step backwards after several ranges and chunks is
+    /// refused with the same message whole (serial and parallel) and streamed in chunks
+    /// (parallel chunks that start after overflow records).
+    #[test]
+    fn overflow_records_order_errors_agree_everywhere() {
+        let d = tempfile::tempdir().unwrap();
+        let l = layout("rec=8,time=0:4,chan=4:1,kind=5:1,event=0,overflow=1,tick_ps=1,wrap=16");
+        let ticks: Vec<(u64, u64)> = stream(40_000, 3, 7);
+        let bad = 31_337;
+        let mut bytes = Vec::new();
+        let (mut epoch, mut index_of_bad) = (0u64, 0);
+        for (i, &(t, ch)) in ticks.iter().enumerate() {
+            let t = if i == bad { ticks[i - 1].0 - 5 } else { t };
+            while t >> 16 > epoch && i != bad {
+                let mut r = [0u8; 8];
+                r[5] = 1;
+                bytes.extend_from_slice(&r);
+                epoch += 1;
+            }
+            if i == bad {
+                index_of_bad = bytes.len() / 8;
+            }
+            let mut r = [0u8; 8];
+            r[..4].copy_from_slice(&((t & 0xFFFF) as u32).to_le_bytes());
+            r[4] = ch as u8;
+            bytes.extend_from_slice(&r);
+        }
+        let p = d.path().join("o.bin");
+        std::fs::write(&p, &bytes).unwrap();
+        let opts = ReadOptions { mmap: true, lenient_order: false };
+        let serial = Records::open(&p, l.clone(), opts).unwrap().channels().unwrap_err().to_string();
+        assert!(serial.contains(&format!("record {index_of_bad} (byte offset {})", index_of_bad * 8)), "{serial}");
+        let par = Records::open(&p, l.clone(), opts).unwrap().with_ranges(997, 3);
+        assert!(par.reads_in_parallel());
+        assert_eq!(par.channels().unwrap_err().to_string(), serial);
+        for chunk in [5_000, 12_345] {
+            let e = par.chunks(chunk).unwrap().find_map(|c| c.err()).expect("a chunk fails").to_string();
+            assert!(e.contains(&format!("record {index_of_bad} ")), "chunks of {chunk}: {e}");
+        }
+        // Lenient reading hands the step on in every path alike.
+        let lenient = ReadOptions { mmap: true, lenient_order: true };
+        let (a, b) = (Records::open(&p, l.clone(), lenient).unwrap(), Records::open(&p, l, lenient).unwrap().with_ranges(997, 3));
+        let flat = |v: Vec<ChannelTags<'_>>| v.iter().map(|c| (c.channel, c.times_ps.to_vec())).collect::<Vec<_>>();
+        assert_eq!(flat(a.channels().unwrap()), flat(b.channels().unwrap()));
     }
 
     #[test]

@@ -79,7 +79,7 @@ impl Batch {
         let mut epochs = Vec::with_capacity(tallies.len());
         for (k, t) in tallies.iter().enumerate() {
             epochs.push(epoch_after(wraps, period));
-            wraps += t.wraps;
+            wraps = wraps.saturating_add(t.wraps);
             for &(c, m) in &t.counts {
                 let Some(s) = slots.find(c) else { continue }; // given a slot just above
                 (starts[k * n + s], counts[k * n + s]) = (totals[s], m);
@@ -272,6 +272,8 @@ pub(super) fn tally_rich(bytes: &[u8], l: &RecordLayout) -> RichTally {
 /// raw counter and the latest ticks.
 #[derive(Debug, Clone, Copy, Default)]
 pub(super) struct Carry {
+    /// The epoch before the span (ticks).
+    pub(super) base: u128,
     pub(super) periods: u64,
     pub(super) prev_raw: u64,
     pub(super) latest: Option<u128>,
@@ -281,7 +283,7 @@ impl Carry {
     /// The clock range `t` starts from, and the carry after it (its `tally.wraps` set to
     /// the periods it adds: the prefix sum of the second pass).
     pub(super) fn step(&mut self, t: &mut RichTally, rules: &ClockRules) -> Clock {
-        let epoch = (self.periods as u128).saturating_mul(rules.period);
+        let epoch = self.epoch(rules);
         let start = Clock { epoch, prev_raw: self.prev_raw, latest: self.latest };
         let added = if rules.implicit {
             t.first_raw.is_some_and(|f| f < self.prev_raw) as u64 + t.inner_wraps
@@ -292,7 +294,7 @@ impl Carry {
             self.prev_raw = t.last_raw.unwrap_or(self.prev_raw);
         } else if rules.period > 0 {
             if let Some((before, raw)) = t.last_tag {
-                let e = (self.periods.saturating_add(before) as u128).saturating_mul(rules.period);
+                let e = self.base.saturating_add((self.periods.saturating_add(before) as u128).saturating_mul(rules.period));
                 self.latest = Some(e.saturating_add(raw as u128));
             }
         } else if let Some(m) = t.max_raw {
@@ -301,6 +303,11 @@ impl Carry {
         self.periods = self.periods.saturating_add(added);
         t.tally.wraps = added;
         start
+    }
+
+    /// The epoch after the periods carried so far.
+    pub(super) fn epoch(&self, rules: &ClockRules) -> u128 {
+        self.base.saturating_add((self.periods as u128).saturating_mul(rules.period))
     }
 }
 
