@@ -506,6 +506,11 @@ mod tests {
             let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();
             assert_eq!(pool.install(|| flat(r.channels())), serial, "{threads} threads, {}", l.to_spec());
         }
+        if serial.is_ok() {
+            // The parallel passes themselves succeed (no silent serial fallback).
+            let mut d = Demuxer::new(&r.layout, r.map.path(), lenient);
+            assert!(r.demux_span(r.parallel_body().unwrap(), &mut d, true), "parallel passes fell back: {}", l.to_spec());
+        }
         serial.map(|v| v.len())
     }
 
