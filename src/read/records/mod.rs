@@ -382,6 +382,9 @@ impl TagSource for Records {
     fn event_count(&self) -> u64 {
         self.count
     }
+    fn exact_event_count(&self) -> bool {
+        self.layout.kinds.is_none() && self.layout.edge.as_ref().is_none_or(|e| e.keep == super::layout::EdgeKeep::Both)
+    }
     fn declared_channels(&self) -> Option<Vec<Channel>> {
         None
     }
