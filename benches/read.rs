@@ -1,7 +1,8 @@
 //! Read throughput of each input format from a warm page cache, each beside a plain sum
 //! over the same mapping in the same run (the memory-bandwidth yardstick). Files of
 //! `TAGSIEVE_BENCH_MIB` MiB (default 256) are generated in a temp dir with an integer PRNG.
-//! Targets: arrays and container ≥ 50% of the plain-sum rate; records demux ≥ 25%. Each
+//! Targets: arrays and container ≥ 50% of the plain-sum rate; records demux ≥ 25%, also
+//! for 8-byte packed records (plain, and with a kind field and overflow records). Each
 //! format is set beside two sums: one thread (`plain_sum`) and the whole rayon pool
 //! (`plain_sum_all_threads`, the stricter yardstick, as the readers run on the pool).
 
@@ -17,6 +18,11 @@ use tagsieve::ChannelTags;
 
 const CHANNELS: u32 = 4;
 const RECORD_SPEC: &str = "rec=16,time=0:8:le,chan=8:2:le,tick_ps=1";
+/// One little-endian 64-bit word per record: the channel in the top 8 bits, a 56-bit time.
+const PACKED_SPEC: &str = "rec=8,time=0:8:le[0..56],chan=0:8:le[56..64],tick_ps=1";
+/// The same word with a 3-bit kind (0 a time tag, 1 an overflow of 2^48 ticks), the
+/// channel in bits 48..56 and a 48-bit time: the classifying loops.
+const PACKED_KINDS_SPEC: &str = "rec=8,time=0:8:le[0..48],chan=0:8:le[48..56],kind=0:8:le[56..59],event=0,overflow=1,tick_ps=1,wrap=48";
 
 fn bench_mib() -> u64 {
     std::env::var("TAGSIEVE_BENCH_MIB").ok().and_then(|s| s.parse().ok()).unwrap_or(256)
@@ -43,6 +49,24 @@ struct Files {
     array: PathBuf,
     records: PathBuf,
     container: PathBuf,
+    packed: PathBuf,
+    packed_kinds: PathBuf,
+}
+
+/// Tags of `chans` in time order as packed words `time | channel << chan_shift` (and,
+/// for `kinds`, an overflow record every 2^20 tags: kind 1 in bits 56..59, no time).
+fn packed_words(chans: &[ChannelTags<'_>], chan_shift: u32, kinds: bool) -> Vec<u8> {
+    let mut all: Vec<(u64, u64)> = chans.iter().flat_map(|c| c.times_ps.iter().map(move |&t| (t, c.channel as u64))).collect();
+    all.sort_unstable();
+    let mut out = Vec::with_capacity(all.len() * 8 + 64);
+    for (i, (t, ch)) in all.into_iter().enumerate() {
+        if kinds && i % (1 << 20) == (1 << 20) - 1 {
+            out.extend_from_slice(&(1u64 << 56).to_le_bytes());
+        }
+        let shift_mask = (1u64 << chan_shift) - 1;
+        out.extend_from_slice(&((t & shift_mask) | ch << chan_shift).to_le_bytes());
+    }
+    out
 }
 
 fn make_files() -> Files {
@@ -59,7 +83,11 @@ fn make_files() -> Files {
     let records = dir.path().join("r.bin");
     let half = synthetic((bytes / 16) as usize);
     write_records(&records, &RecordLayout::from_spec(RECORD_SPEC).expect("spec"), &half).expect("records");
-    Files { _dir: dir, array, records, container }
+    drop(half);
+    let (packed, packed_kinds) = (dir.path().join("p.bin"), dir.path().join("pk.bin"));
+    std::fs::write(&packed, packed_words(&one, 56, false)).expect("packed");
+    std::fs::write(&packed_kinds, packed_words(&one, 48, true)).expect("packed kinds");
+    Files { _dir: dir, array, records, container, packed, packed_kinds }
 }
 
 /// The yardstick: sum every u64 of the mapped file.
@@ -92,9 +120,12 @@ fn read_all(arg: &str, layout: Option<&RecordLayout>) -> usize {
 fn formats(c: &mut Criterion) {
     let files = make_files();
     let layout = RecordLayout::from_spec(RECORD_SPEC).expect("spec");
-    let sets: [(&str, String, &Path, Option<&RecordLayout>); 3] = [
+    let (packed, packed_kinds) = (RecordLayout::from_spec(PACKED_SPEC).expect("spec"), RecordLayout::from_spec(PACKED_KINDS_SPEC).expect("spec"));
+    let sets: [(&str, String, &Path, Option<&RecordLayout>); 5] = [
         ("channel_array", format!("1={}", files.array.display()), &files.array, None),
         ("records_demux", files.records.display().to_string(), &files.records, Some(&layout)),
+        ("packed_demux", files.packed.display().to_string(), &files.packed, Some(&packed)),
+        ("packed_kinds_demux", files.packed_kinds.display().to_string(), &files.packed_kinds, Some(&packed_kinds)),
         ("container", files.container.display().to_string(), &files.container, None),
     ];
     for (name, arg, path, layout) in sets {

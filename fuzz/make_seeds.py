@@ -3,7 +3,7 @@
 
 Seeds are short valid inputs so the fuzzers start inside the formats instead of having
 to discover magic bytes and key names; byte layouts follow src/read/container.rs and
-src/read/records.rs, the TOML seeds follow fixtures/ and docs/manifest.md.
+src/read/records/ and docs/formats.md, the TOML seeds follow fixtures/ and docs/manifest.md.
 """
 import os
 import shutil
@@ -44,7 +44,7 @@ def records_structured(layout8, recs):
 def main():
     shutil.rmtree(ROOT, ignore_errors=True)
     put("container", "two_channels", container([(1, "larch_plus", [10, 250, 900]), (3, "rowan_plus", [12, 600])]))
-    put("container", "empty_channel", container([(2, "", []), (7, "x", [5])], tick_fs=80_955))
+    put("container", "empty_channel", container([(2, "", []), (7, "x", [5])], tick_fs=12_345))
     put("container", "no_channels", container([]))
     put("container", "unsorted", container([(4, "u", [30, 20, 10, 40])]))
 
@@ -58,6 +58,19 @@ def main():
     recs = b"HEAD" + b"".join(struct.pack("<IB3x", t, c) for t, c in [(65_530, 0), (3, 1), (9, 0)])
     put("records", "spec_wrap16", bytes([0x07]) + spec + recs)
 
+    # The new layout keys through the spec form: bit fields sharing one word, kinds with
+    # overflow (counted) and marker records, skip-unknown, a signed channel map, edges,
+    # a reorder tolerance.
+    spec = (b"rec=4,time=0:4[0..20],chan=0:4:signed[20..24],kind=0:4[24..27],edge=0:4[27..28],event=0,overflow=1,"
+            b"marker=2>9,ignore=3,unknown=skip,map=-1>1+0>2+1>3,edge_keep=both,edge_falling=1,edge_falling_add=100,"
+            b"tick_ps=1.5,wrap=20,reorder_ps=30\n")
+    words = [5 | 0xF << 20, 9 | 1 << 20 | 1 << 27, 0 | 1 << 24, 2 | 2 << 24, 7 | 5 << 24, 1 | 0xF << 20]
+    put("records", "packed_kinds", bytes([0x05]) + spec + b"".join(struct.pack("<I", w) for w in words))
+    spec = b"rec=10,time=0:8:be[0..48],kind=0:8:be[56..64],chan=8:1,count=9:1,event=0,overflow_count=1,tick_ps=4,wrap=8\n"
+    recs = [struct.pack(">QBB", w, c, n) for w, c, n in [(200, 3, 0), (1 << 56, 0, 2), (10, 1, 0), (1 << 56, 0, 0), (11, 3, 0)]]
+    put("records", "counted_overflow", bytes([0x03]) + spec + b"".join(recs))
+    for name in ("packed64", "edge32", "marker16"):
+        put("layout_toml", name, open(os.path.join("fixtures", name + ".layout.toml"), "rb").read())
     put("layout_toml", "wrap32", open("fixtures/records_wrap32.layout.toml", "rb").read())
     put("layout_toml", "be64", 'record_bytes = 16\ntick_ps = 1\n[time]\noffset = 0\nwidth = 8\nendian = "big"\n'
         '[channel]\noffset = 8\nwidth = 4\nendian = "big"\n')

@@ -58,7 +58,7 @@ mod tests {
         assert_eq!(fmt_duration_ps(1.5e6), "1.500 µs");
         assert_eq!(fmt_duration_ps(2e12), "2.000 s");
         assert_eq!(fmt_duration_ps(0.0), "0 ps");
-        assert_eq!(fmt_duration_ps(80.955), "80.95 ps");
+        assert_eq!(fmt_duration_ps(12.345), "12.35 ps");
     }
 
     #[test]

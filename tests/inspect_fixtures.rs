@@ -65,6 +65,23 @@ fn big_endian_records_through_compact_spec_fixture() {
     check_fixture("records_be64");
 }
 
+/// The three worked examples of docs/formats.md, written by tools/make_fixtures.py from
+/// the documented layouts alone.
+#[test]
+fn packed_64_bit_words_with_a_channel_map_fixture() {
+    check_fixture("packed64");
+}
+
+#[test]
+fn words_with_overflow_records_and_edge_flags_fixture() {
+    check_fixture("edge32");
+}
+
+#[test]
+fn records_with_a_marker_kind_and_small_reorderings_fixture() {
+    check_fixture("marker16");
+}
+
 #[test]
 fn container_written_by_numpy_fixture() {
     check_fixture("link_small");

@@ -104,7 +104,7 @@ fn record_errors() {
     let gp = g.to_str().unwrap();
     for (layout, want) in [
         ("rec=16,time=0:8:le,chan=8:2:le,tick_ps=0", "must be positive"),
-        ("rec=16,time=0:8:le,chan=8:2:le,tick_ps=-80.955", "must be positive"),
+        ("rec=16,time=0:8:le,chan=8:2:le,tick_ps=-12.345", "must be positive"),
         ("rec=16,time=0:8:le,chan=8:2:le,tick_ps=8o", "expected a positive decimal"),
         ("rec=16,time=0:4:le,chan=8:2:le,tick_ps=1,wrap=40", "does not fit the 32-bit time field"),
         ("rec=16,time=0:8:le,chan=15:2:le,tick_ps=1", "wider than the 16-byte record"),

@@ -121,7 +121,7 @@ fn ps_of(ticks: u64, tick_fs: u64) -> u64 {
 fn layouts() -> impl Strategy<Value = String> {
     let time = prop_oneof![Just("0:4:le"), Just("0:4:be"), Just("0:8:le"), Just("0:8:be")];
     let chan = prop_oneof![Just("9:1"), Just("10:2:le"), Just("10:2:be"), Just("12:4:le"), Just("12:4:be")];
-    let tick = prop_oneof![Just("1"), Just("80.955"), Just("0.5"), Just("4"), Just("27.001")];
+    let tick = prop_oneof![Just("1"), Just("12.345"), Just("0.5"), Just("4"), Just("27.001")];
     (time, chan, tick, 0u64..3).prop_map(|(t, c, k, skip)| {
         let wrap = if t.contains(":4:") { ",wrap=32" } else { "" };
         format!("rec=16,skip={},time={t},chan={c},tick_ps={k}{wrap}", skip * 8)
@@ -175,10 +175,10 @@ fn import_arrays_and_records_into_containers() {
 
     // Records with a fractional tick and a wrapping counter, via a TOML layout file.
     let layout_path = d.path().join("l.toml");
-    std::fs::write(&layout_path, "record_bytes = 8\ntick_ps = \"80.955\"\nwrap_bits = 32\n[time]\noffset = 0\nwidth = 4\n[channel]\noffset = 4\nwidth = 1\n").unwrap();
+    std::fs::write(&layout_path, "record_bytes = 8\ntick_ps = \"12.345\"\nwrap_bits = 32\n[time]\noffset = 0\nwidth = 4\n[channel]\noffset = 4\nwidth = 1\n").unwrap();
     let layout = RecordLayout::from_arg(layout_path.to_str().unwrap()).unwrap();
     let ticks = times(13, 30_000, 1 << 20);
-    let per: Vec<ChannelTags> = (0..2u32).map(|c| ChannelTags::owned(c + 3, "", ticks.iter().skip(c as usize).step_by(2).map(|&t| ps_of(t, 80_955)).collect())).collect();
+    let per: Vec<ChannelTags> = (0..2u32).map(|c| ChannelTags::owned(c + 3, "", ticks.iter().skip(c as usize).step_by(2).map(|&t| ps_of(t, 12_345)).collect())).collect();
     let rec = d.path().join("r.bin");
     write_records(&rec, &layout, &per).unwrap();
     let out2 = d.path().join("r.tsieve");

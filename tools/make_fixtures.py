@@ -97,8 +97,8 @@ def arrays(out, rng):
 
 def records_wrap32(out, rng):
     """Format (b): 16-byte header, 12-byte records: u32 LE tick counter wrapping at 2^32,
-    u16 LE channel, 6 filler bytes; tick 80.955 ps (= 80 955 fs)."""
-    n, tick_fs = 4000, 80_955
+    u16 LE channel, 6 filler bytes; tick 12.345 ps (= 12 345 fs, an invented value)."""
+    n, tick_fs = 4000, 12_345
     ticks = poisson_times(rng, n, 3.0 * 2**32 / n, start=2**32 - 5_000_000)
     assert int(np.diff(ticks.astype(np.int64)).max()) < 2**32, "a gap of a full wrap period is undetectable"
     chan = rng.integers(1, 5, n).astype("<u2")
@@ -146,11 +146,198 @@ def container(out, rng):
     expected(out, "link_small", ["fixtures/link_small.tsieve"], None, chans, 0)
 
 
+def put_bits(word, shift, bits, value):
+    """Set bits shift .. shift+bits of an integer word to value (plain Python integers)."""
+    mask = ((1 << bits) - 1) << shift
+    return (word & ~mask) | ((value << shift) & mask)
+
+
+def write_layout(out, name, text):
+    with open(os.path.join(out, name + ".layout.toml"), "w") as f:
+        f.write(text)
+
+
+PACKED64_TOML = """\
+# docs/formats.md, worked example 1: one little-endian 64-bit word per record,
+# the raw channel 0..3 in the top 8 bits, a 56-bit time below it, 1 ps ticks.
+record_bytes = 8
+tick_ps = "1"
+
+[time]
+offset = 0
+width = 8
+bits = 56
+
+[channel]
+offset = 0
+width = 8
+shift = 56
+bits = 8
+
+[channel.map]
+0 = 1
+1 = 2
+2 = 3
+3 = 4
+"""
+
+
+def packed64(out, rng):
+    """Worked example 1 (docs/formats.md): channel (raw 0..3, mapped to 1..4) in bits
+    56..64 of a LE u64, time in bits 0..56."""
+    n = 3000
+    ticks = poisson_times(rng, n, 2.0e5, start=123_456)
+    raw = rng.integers(0, 4, n)
+    words = [put_bits(put_bits(0, 0, 56, int(t)), 56, 8, int(c)) for t, c in zip(ticks, raw)]
+    with open(os.path.join(out, "packed64.bin"), "wb") as f:
+        f.write(b"".join(struct.pack("<Q", w) for w in words))
+    write_layout(out, "packed64", PACKED64_TOML)
+    chans = [stats(c + 1, "", "fixtures/packed64.bin", ticks[raw == c]) for c in range(4)]
+    expected(out, "packed64", ["fixtures/packed64.bin"], "fixtures/packed64.layout.toml", chans, 0)
+
+
+EDGE32_TOML = """\
+# docs/formats.md, worked example 2: one little-endian 32-bit word per record: a 24-bit
+# time counter, an edge flag (1 = falling), a 6-bit channel and a kind bit (1 = the
+# counter wrapped once: an overflow record). Ticks of 6.789 ps (an invented value).
+record_bytes = 4
+tick_ps = "6.789"
+wrap_bits = 24
+
+[time]
+offset = 0
+width = 4
+bits = 24
+
+[edge]
+offset = 0
+width = 4
+shift = 24
+bits = 1
+falling = 1
+keep = "both"
+falling_add = 100
+
+[channel]
+offset = 0
+width = 4
+shift = 25
+bits = 6
+
+[kind]
+offset = 0
+width = 4
+shift = 31
+bits = 1
+
+[kinds]
+0 = "event"
+1 = "overflow"
+"""
+
+
+def edge32(out, rng):
+    """Worked example 2: 32-bit words with overflow records and an edge flag; both edges
+    kept, falling edges on channel + 100."""
+    n, tick_fs, period_bits = 4000, 6_789, 24
+    ticks = poisson_times(rng, n, 2.0**22, start=1_000)
+    chan = rng.integers(1, 5, n)
+    falling = rng.integers(0, 2, n)
+    noise = rng.integers(0, 2**31, n + 4 * n)
+    words, epoch, k = [], 0, 0
+    for t, c, e in zip(ticks, chan, falling):
+        t = int(t)
+        while epoch < t >> period_bits:  # one overflow record per period passed
+            words.append(put_bits(int(noise[k]), 31, 1, 1))
+            k += 1
+            epoch += 1
+        w = put_bits(0, 0, 24, t & (2**24 - 1))
+        w = put_bits(w, 24, 1, int(e))
+        w = put_bits(w, 25, 6, int(c))
+        words.append(put_bits(w, 31, 1, 0))
+    with open(os.path.join(out, "edge32.bin"), "wb") as f:
+        f.write(b"".join(struct.pack("<I", w) for w in words))
+    write_layout(out, "edge32", EDGE32_TOML)
+    ps = np.array([(int(t) * tick_fs + 500) // 1000 for t in ticks], dtype=np.uint64)
+    ours = chan + 100 * falling
+    chans = [stats(int(c), "", "fixtures/edge32.bin", ps[ours == c]) for c in sorted(set(ours.tolist()))]
+    expected(out, "edge32", ["fixtures/edge32.bin"], "fixtures/edge32.layout.toml", chans, 0)
+
+
+MARKER16_TOML = """\
+# docs/formats.md, worked example 3: 16-byte big-endian records: a 48-bit time in the
+# low bits and a kind byte in the top byte of the first 8-byte word, a 2-byte channel,
+# 6 filler bytes. Kind 0: a time tag; 7: the external trigger, our channel 9; 15: a
+# housekeeping record to ignore; any other kind is skipped and counted. Channels may
+# arrive up to 500 ps out of order. Ticks of 4 ps.
+record_bytes = 16
+tick_ps = "4"
+reorder_ps = 500
+
+[time]
+offset = 0
+width = 8
+endian = "big"
+bits = 48
+
+[kind]
+offset = 0
+width = 8
+endian = "big"
+shift = 56
+bits = 8
+unknown = "skip"
+
+[kinds]
+0 = "event"
+7 = { marker = 9 }
+15 = "ignore"
+
+[channel]
+offset = 8
+width = 2
+endian = "big"
+"""
+
+
+def marker16(out, rng):
+    """Worked example 3: records with a marker kind, ignored and unknown kinds, and
+    neighbours of different channels swapped by up to 120 ticks (480 ps ≤ 500 ps)."""
+    n, tick_fs = 2000, 4000
+    ticks = poisson_times(rng, n, 300.0, start=50)
+    chan = rng.integers(1, 4, n)
+    chan[rng.random(n) < 0.08] = 9  # marker records
+    order = list(range(n))
+    i = 0
+    while i + 1 < n:
+        a, b = order[i], order[i + 1]
+        if chan[a] != chan[b] and int(ticks[b]) - int(ticks[a]) <= 120 and rng.random() < 0.5:
+            order[i], order[i + 1] = b, a
+            i += 2
+        else:
+            i += 1
+    recs = []
+    for j in order:
+        if rng.random() < 0.05:  # a housekeeping record
+            recs.append((put_bits(int(rng.integers(0, 2**48)), 56, 8, 15), 0))
+        if rng.random() < 0.02:  # a kind the layout does not list
+            recs.append((put_bits(int(rng.integers(0, 2**48)), 56, 8, 200), 0))
+        kind = 7 if chan[j] == 9 else 0
+        recs.append((put_bits(int(ticks[j]), 56, 8, kind), 0 if chan[j] == 9 else int(chan[j])))
+    with open(os.path.join(out, "marker16.bin"), "wb") as f:
+        for w, c in recs:
+            f.write(struct.pack(">QH", w, c) + bytes(rng.integers(0, 256, 6, dtype=np.uint8)))
+    write_layout(out, "marker16", MARKER16_TOML)
+    ps = ticks * np.uint64(tick_fs // 1000)  # 4 ps ticks: whole ps, no rounding
+    chans = [stats(int(c), "", "fixtures/marker16.bin", ps[chan == c]) for c in [1, 2, 3, 9]]
+    expected(out, "marker16", ["fixtures/marker16.bin"], "fixtures/marker16.layout.toml", chans, 0)
+
+
 LAYOUT_TOML = """\
 # Layout of fixtures/records_wrap32.bin (keys: docs/formats.md).
 record_bytes = 12
 header_bytes = 16
-tick_ps = "80.955"
+tick_ps = "12.345"
 wrap_bits = 32
 
 [time]
@@ -173,6 +360,11 @@ def main():
     records_wrap32(out, rng)
     records_be64(out, rng)
     container(out, rng)
+    # The worked examples of docs/formats.md, each from its own generator (so the files
+    # above stay as they were).
+    packed64(out, np.random.default_rng(SEED + 1))
+    edge32(out, np.random.default_rng(SEED + 2))
+    marker16(out, np.random.default_rng(SEED + 3))
     with open(os.path.join(out, "records_wrap32.layout.toml"), "w") as f:
         f.write(LAYOUT_TOML)
 

@@ -144,7 +144,12 @@ fn whole_read(src: &dyn TagSource) -> Option<Tags> {
         assert!(out.insert(c.channel, c.times_ps.to_vec()).is_none(), "channel {} returned twice", c.channel);
     }
     let events: u64 = out.values().map(|v| v.len() as u64).sum();
-    assert_eq!(events, src.event_count(), "event_count disagrees with the events read");
+    // Records of layouts with kinds or an edge choice hold fewer tags than records:
+    // event_count is then an upper bound.
+    assert!(events <= src.event_count(), "more events read than event_count says");
+    if src.exact_event_count() {
+        assert_eq!(events, src.event_count(), "event_count disagrees with the events read");
+    }
     Some(out)
 }
 

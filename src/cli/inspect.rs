@@ -37,6 +37,7 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         println!("{}", serde_json::to_string_pretty(&to_json(&report)).map_err(|e| Error::Usage(e.to_string()))?);
     } else {
         print_table(&report);
+        report.notes.iter().for_each(|n| println!("note: {n}"));
     }
     match report.problems().first() {
         None => Ok(()),
@@ -55,6 +56,7 @@ fn to_json(r: &InspectReport) -> serde_json::Value {
         "channels": r.channels,
         "totals": r.totals,
         "problems": r.problems(),
+        "notes": r.notes,
         "ok": r.problems().is_empty(),
     })
 }

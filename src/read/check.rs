@@ -55,6 +55,8 @@ pub struct InspectReport {
     pub inputs: Vec<InputFile>,
     pub channels: Vec<ChannelReport>,
     pub totals: Totals,
+    /// Remarks from the readers that are not problems (records of unknown kinds skipped).
+    pub notes: Vec<String>,
 }
 
 impl InspectReport {
@@ -135,6 +137,7 @@ impl Acc {
 /// Inspect every source in one pass each (sources opened with `lenient_order`).
 pub fn inspect(sources: &[Box<dyn TagSource>], progress: &Progress) -> Result<InspectReport> {
     let mut accs: BTreeMap<Channel, Acc> = BTreeMap::new();
+    let mut notes = Vec::new();
     for s in sources {
         let source = s.file().path.display().to_string();
         for chunk in s.chunks(CHUNK_EVENTS)? {
@@ -148,6 +151,7 @@ pub fn inspect(sources: &[Box<dyn TagSource>], progress: &Progress) -> Result<In
             }
         }
         s.check_unchanged()?;
+        notes.extend(s.notes());
     }
     let mut channels: Vec<ChannelReport> = accs.into_values().map(Acc::finish).collect();
     let totals = totals(&channels);
@@ -155,7 +159,7 @@ pub fn inspect(sources: &[Box<dyn TagSource>], progress: &Progress) -> Result<In
     for c in &mut channels {
         c.rate_hz = totals.live_time_ps.and_then(|t| rate_hz(c.events, t));
     }
-    Ok(InspectReport { inputs: sources.iter().map(|s| s.file()).collect(), channels, totals })
+    Ok(InspectReport { inputs: sources.iter().map(|s| s.file()).collect(), channels, totals, notes })
 }
 
 fn totals(channels: &[ChannelReport]) -> Totals {

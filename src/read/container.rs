@@ -329,9 +329,9 @@ mod tests {
         let d = tempfile::tempdir().unwrap();
         let p = d.path().join("x.sieve");
         let chans = [ChannelTags::owned(2, "larch_minus", vec![5, 9]), ChannelTags::owned(7, "", vec![])];
-        write_container(&p, &chans, 80.955, "unit test").unwrap();
+        write_container(&p, &chans, 12.345, "unit test").unwrap();
         let c = Container::open(&p, ReadOptions::default()).unwrap();
-        assert_eq!(c.info().tick.fs, 80_955);
+        assert_eq!(c.info().tick.fs, 12_345);
         assert_eq!(c.info().creator, "unit test");
         let got = c.channels().unwrap();
         assert_eq!((got[0].channel, got[0].name.as_str(), &*got[0].times_ps), (2, "larch_minus", &[5u64, 9][..]));

@@ -68,11 +68,21 @@ pub trait TagSource: Send + Sync {
     fn chunks(&self, events_per_chunk: usize) -> Result<Box<dyn Iterator<Item = Result<Vec<ChannelTags<'static>>>> + Send + '_>>;
     /// Re-check the file's size after a pass; an error if it changed underneath.
     fn check_unchanged(&self) -> Result<()>;
-    /// Number of events in the file, known from its size or channel table.
+    /// Number of events in the file, known from its size or channel table (for records
+    /// of a layout with kinds or an edge choice, the number of records: an upper bound).
     fn event_count(&self) -> u64;
+    /// Whether [`TagSource::event_count`] is the exact number of tags read.
+    fn exact_event_count(&self) -> bool {
+        true
+    }
     /// Channel numbers known without reading the data (arrays, container); `None` for
     /// interleaved records, whose channels appear only while demultiplexing.
     fn declared_channels(&self) -> Option<Vec<Channel>>;
+    /// Remarks on the last pass that are not errors (records of unknown kinds skipped, say),
+    /// one line each, for the report.
+    fn notes(&self) -> Vec<String> {
+        Vec::new()
+    }
 }
 
 /// Open the INPUT arguments of one block: `CH=PATH` (or `CH:NAME=PATH`) for per-channel
