@@ -3,6 +3,7 @@
 //! A events ([`parallel`]) and bit-identical for any thread count.
 
 pub mod accidentals;
+pub mod clock;
 pub mod count;
 pub mod delays;
 pub mod kernels;
