@@ -77,6 +77,12 @@ const CONCEPTS: &[Concept] = &[
     // records) on the one command that writes tag files, where no table format exists.
     ("file format of the simulated blocks", "format", None, &["simulate"]),
     ("leave the delays out of run.toml", "omit-delays", None, &["simulate"]),
+    ("channels on the second recorder's clock", "second-site", None, &["simulate"]),
+    ("second recorder's frequency offset, ppm", "clock-ppm", None, &["simulate"]),
+    ("second recorder's start offset, s", "clock-offset-s", None, &["simulate"]),
+    ("Allan deviation of the second recorder at 1 s", "clock-adev", None, &["simulate"]),
+    ("time of a jump of the second recorder", "clock-step-at-s", None, &["simulate"]),
+    ("size of that jump", "clock-step-ps", None, &["simulate"]),
 ];
 
 /// Old spellings kept hidden, each warning and pointing to the one name: (command, old, new).
