@@ -1,6 +1,7 @@
 //! One file per subcommand; each parses its arguments and calls the library.
 
 pub mod chsh;
+pub mod clock_fit;
 pub mod common;
 pub mod completions;
 pub mod count;
