@@ -199,7 +199,7 @@ fn input_help_names_every_input_form() {
             seen.insert(sub.get_name().to_string());
         }
     }
-    let want: BTreeSet<String> = ["inspect", "import", "scan", "sweep", "count"].iter().map(|c| c.to_string()).collect();
+    let want: BTreeSet<String> = ["inspect", "import", "scan", "sweep", "count", "clock-fit"].iter().map(|c| c.to_string()).collect();
     assert_eq!(seen, want, "the commands with INPUT arguments");
 }
 
