@@ -78,6 +78,7 @@ const CONCEPTS: &[Concept] = &[
     ("file format of the simulated blocks", "format", None, &["simulate"]),
     ("leave the delays out of run.toml", "omit-delays", None, &["simulate"]),
     ("channels on the second recorder's clock", "second-site", None, &["simulate", "clock-fit"]),
+    ("clock file mapping the second site's channels", "clock", None, BLOCK),
     ("offsets searched by the clock fit, ± s", "offset-range-s", None, &["clock-fit"]),
     ("frequency offsets searched by the clock fit, ± ppm", "ppm-range", None, &["clock-fit"]),
     ("second recorder's frequency offset, ppm", "clock-ppm", None, &["simulate"]),

@@ -322,7 +322,8 @@ pub fn fit_clock(first: &SiteTags, second: &SiteTags, site_channels: Vec<u32>, c
         line = boot.line;
     }
     let window = if boot.knots.len() >= 2 { cfg.reacquire_window_ps as f64 } else { (coarse_err + cfg.ppm_step * 1e-6 * (start - center).abs()).clamp(cfg.track_window_ps as f64, cfg.reacquire_window_ps as f64) };
-    let Track { knots, lost, steps, sum_sd2, sum_n, .. } = track(first, second, start, end, line, window, boot.knots.len() >= 2, seg_ps, coarse_err, cfg);
+    let Track { mut knots, lost, steps, sum_sd2, sum_n, .. } = track(first, second, start, end, line, window, boot.knots.len() >= 2, seg_ps, coarse_err, cfg);
+    extend_to_edges(&mut knots, start, end, seg_ps);
     if knots.len() < 2 {
         return Err(Error::Usage(format!(
             "clock fit: the coarse peak ({:.1} σ at offset {:.6} s, {:+.1} ppm) could not be followed: {} segment(s) with a peak",
@@ -457,4 +458,32 @@ pub fn fit_sources(
     };
     let (first, second) = (part(false), part(true));
     fit_clock(&first, &second, second_site.to_vec(), cfg)
+}
+
+/// Knots sit at the mean time of each segment's pairs; the end segments' data also cover the
+/// half segment beyond them, so the map is carried to the tracked span's ends along the end
+/// knots' line (when those ends are within one segment).
+fn extend_to_edges(knots: &mut Vec<Knot>, start: f64, end: f64, seg_ps: f64) {
+    if knots.len() < 2 {
+        return;
+    }
+    let along = |a: Knot, b: Knot, t: f64| {
+        let slope = (b.first_ps - a.first_ps) as f64 / (b.site_ps - a.site_ps) as f64;
+        Knot { site_ps: t.round() as i64, first_ps: (a.first_ps as f64 + slope * (t.round() - a.site_ps as f64)).round() as i64, sigma_ps: a.sigma_ps }
+    };
+    let (k0, k1) = (knots[0], knots[1]);
+    if (k0.site_ps as f64) - start > 1.0 && (k0.site_ps as f64) - start <= seg_ps {
+        let k = along(k0, k1, start);
+        if k.first_ps <= k0.first_ps {
+            knots.insert(0, k);
+        }
+    }
+    let n = knots.len();
+    let (ka, kb) = (knots[n - 2], knots[n - 1]);
+    if end - kb.site_ps as f64 > 1.0 && end - kb.site_ps as f64 <= seg_ps {
+        let k = along(kb, ka, end);
+        if k.first_ps >= kb.first_ps {
+            knots.push(k);
+        }
+    }
 }

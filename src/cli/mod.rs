@@ -112,8 +112,30 @@ use tagsieve::read::TagSource;
 use tagsieve::Result;
 
 /// Open one block's inputs.
-pub fn open(input: &common::InputArgs, _g: &Global) -> Result<Vec<Box<dyn TagSource>>> {
-    tagsieve::pipeline::open_block(&input.inputs, input.layout.as_deref(), input.read.read_options())
+pub fn open(input: &common::InputArgs, g: &Global) -> Result<Vec<Box<dyn TagSource>>> {
+    let sources = tagsieve::pipeline::open_block(&input.inputs, input.layout.as_deref(), input.read.read_options())?;
+    let Some(path) = &input.clock else { return Ok(sources) };
+    let map = std::sync::Arc::new(tagsieve::engine::clock::ClockMap::load(path)?);
+    let tally = std::sync::Arc::new(std::sync::Mutex::new(tagsieve::engine::clock::MapTally::default()));
+    let n = sources.len();
+    let (quiet, shown) = (g.quiet, path.display().to_string());
+    Ok(sources
+        .into_iter()
+        .enumerate()
+        .map(|(i, inner)| {
+            // the last source drops last: it reports the tally of the whole block
+            let shown = shown.clone();
+            let on_drop: Option<Box<dyn Fn(&tagsieve::engine::clock::MapTally) + Send + Sync>> = (i + 1 == n && !quiet).then(|| {
+                Box::new(move |t: &tagsieve::engine::clock::MapTally| {
+                    eprintln!(
+                        "clock map {shown}: {} second-site tags mapped; not counted: {} outside the fitted span, {} in lost segments, {} before time 0",
+                        t.mapped, t.outside_span, t.in_lost_span, t.below_zero
+                    )
+                }) as Box<dyn Fn(&tagsieve::engine::clock::MapTally) + Send + Sync>
+            });
+            Box::new(tagsieve::engine::clock::ClockedSource { inner, map: map.clone(), tally: tally.clone(), on_drop }) as Box<dyn TagSource>
+        })
+        .collect())
 }
 
 /// Record each input's path, size and checksum.
