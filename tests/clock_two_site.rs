@@ -65,7 +65,6 @@ mod fit {
     }
 
     pub struct Run {
-        pub one_clock: Vec<ChannelTags<'static>>,
         pub two_clocks: Vec<ChannelTags<'static>>,
         pub truth: ClockMap,
         pub detectors: Vec<DetectorModel>,
@@ -76,9 +75,9 @@ mod fit {
         let dur = (duration_s * 1e12) as u64;
         let set = Setting { alpha_deg: 0.0, beta_deg: 22.5 };
         let one_clock = simulate_block(&SourceModel::scenario(), &detectors, set, dur, seed).unwrap();
-        let mut two_clocks = one_clock.clone();
+        let mut two_clocks = one_clock;
         let truth = restamp_second_site(&mut two_clocks, &[3, 4], clock, dur).unwrap();
-        Run { one_clock, two_clocks, truth, detectors }
+        Run { two_clocks, truth, detectors }
     }
 
     pub fn sites(r: &Run) -> (SiteTags, SiteTags) {

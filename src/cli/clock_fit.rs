@@ -43,7 +43,8 @@ pub struct Args {
 
 pub fn run(args: Args, g: &Global) -> Result<()> {
     super::common::precheck_output(&args.output, args.force)?;
-    if !(args.offset_range_s > 0.0 && args.offset_range_s <= 100.0) || !(args.ppm_range >= 0.0 && args.ppm_range <= 1e4) {
+    let in_range = |v: f64, lo: f64, hi: f64| v.is_finite() && v >= lo && v <= hi;
+    if !in_range(args.offset_range_s, 1e-9, 100.0) || !in_range(args.ppm_range, 0.0, 1e4) {
         return Err(tagsieve::Error::Usage(format!(
             "clock-fit: --offset-range-s {} and --ppm-range {}: expected (0, 100] s and [0, 10⁴] ppm",
             args.offset_range_s, args.ppm_range

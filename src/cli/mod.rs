@@ -125,13 +125,13 @@ pub fn open(input: &common::InputArgs, g: &Global) -> Result<Vec<Box<dyn TagSour
         .map(|(i, inner)| {
             // the last source drops last: it reports the tally of the whole block
             let shown = shown.clone();
-            let on_drop: Option<Box<dyn Fn(&tagsieve::engine::clock::MapTally) + Send + Sync>> = (i + 1 == n && !quiet).then(|| {
+            let on_drop: Option<tagsieve::engine::clock::TallyReport> = (i + 1 == n && !quiet).then(|| {
                 Box::new(move |t: &tagsieve::engine::clock::MapTally| {
                     eprintln!(
                         "clock map {shown}: {} second-site tags mapped; not counted: {} outside the fitted span, {} in lost segments, {} before time 0",
                         t.mapped, t.outside_span, t.in_lost_span, t.below_zero
                     )
-                }) as Box<dyn Fn(&tagsieve::engine::clock::MapTally) + Send + Sync>
+                }) as tagsieve::engine::clock::TallyReport
             });
             Box::new(tagsieve::engine::clock::ClockedSource { inner, map: map.clone(), tally: tally.clone(), on_drop }) as Box<dyn TagSource>
         })

@@ -60,7 +60,7 @@ impl SiteClock {
 fn smooth_path(clock: &SiteClock, n: usize) -> Vec<f64> {
     let h_s = PATH_SPACING_PS as f64 * 1e-12;
     let q_per_s = 3.0 * clock.adev_1s * clock.adev_1s;
-    let mut rng = Rng::new(mix_seed(&[clock.seed, 0x636c_6f63_6b]));
+    let mut rng = Rng::new(mix_seed(&[clock.seed, 0x0063_6c6f_636b]));
     let (mut y, mut x_ps) = (0.0f64, 0.0f64);
     (0..=n)
         .map(|k| {
