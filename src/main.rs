@@ -40,6 +40,8 @@ pub(crate) enum Command {
     Count(cli::count::Args),
     /// CHSH analysis of a run manifest: E per setting pair, S, σ_S, significance.
     Chsh(cli::chsh::Args),
+    /// Fit the clock map between two recorders from the tags alone; write a clock file.
+    ClockFit(cli::clock_fit::Args),
     /// The whole pipeline on simulated demo data, into one folder.
     Demo(cli::demo::Args),
     /// Print a shell completion script.
@@ -57,6 +59,7 @@ impl Command {
             Command::Sweep(a) => a.input.read.threads.threads,
             Command::Count(a) => a.input.read.threads.threads,
             Command::Chsh(a) => a.read.threads.threads,
+            Command::ClockFit(a) => a.read.threads.threads,
             Command::Demo(a) => a.threads.threads,
             Command::Completions(_) => 0,
         }
@@ -89,6 +92,7 @@ fn main() -> ExitCode {
         Command::Sweep(a) => cli::sweep::run(a, &cli.global),
         Command::Count(a) => cli::count::run(a, &cli.global),
         Command::Chsh(a) => cli::chsh::run(a, &cli.global),
+        Command::ClockFit(a) => cli::clock_fit::run(a, &cli.global),
         Command::Demo(a) => cli::demo::run(a, &cli.global),
         Command::Completions(a) => cli::completions::run::<Cli>(a),
     };

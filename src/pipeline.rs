@@ -396,3 +396,30 @@ pub fn bell3_search(
     }
     None
 }
+
+/// Clock fit of one block's inputs: split the channels of `sources` into the two sites (`second_site` lists the
+/// second's; all others are the first's), subtract nothing yet but carry each channel's
+/// delay (0 where none is given), and fit.
+pub fn fit_sources(
+    sources: &[Box<dyn TagSource>],
+    second_site: &[u32],
+    delays: &Delays,
+    cfg: &crate::analysis::clock_fit::FitConfig,
+) -> Result<(crate::tags::clock::ClockMap, crate::analysis::clock_fit::CoarseResult)> {
+    let channels = read::all_channels(sources)?;
+    if let Some(ch) = second_site.iter().find(|ch| !channels.iter().any(|c| c.channel == **ch)) {
+        let known: Vec<String> = channels.iter().map(|c| c.channel.to_string()).collect();
+        return Err(Error::Usage(format!("clock fit: second-site channel {ch} is not in the inputs (channels: {})", known.join(", "))));
+    }
+    let delay = |ch: u32| delays.by_channel.get(&ch).copied().unwrap_or(0);
+    let part = |second: bool| {
+        let v: Vec<(&[u64], i64)> = channels
+            .iter()
+            .filter(|c| second_site.contains(&c.channel) == second)
+            .map(|c| (c.times_ps.as_ref(), delay(c.channel)))
+            .collect();
+        crate::analysis::clock_fit::SiteTags::merge(&v)
+    };
+    let (first, second) = (part(false), part(true));
+    crate::analysis::clock_fit::fit_clock(&first, &second, second_site.to_vec(), cfg)
+}

@@ -8,6 +8,7 @@ use std::borrow::Cow;
 /// or past it, so the engine's signed differences of two tags and a delay cannot overflow.
 pub const MAX_TIME_PS: u64 = 1 << 62;
 
+pub mod clock;
 pub mod order;
 pub use order::{ascending_below_limit, descends};
 

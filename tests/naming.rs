@@ -16,16 +16,16 @@ use common::{root, tagsieve};
 use std::collections::{BTreeMap, BTreeSet};
 
 /// Every command but `completions` (which only prints a script).
-const WORKERS: &[&str] = &["inspect", "import", "simulate", "scan", "sweep", "count", "chsh", "demo"];
+const WORKERS: &[&str] = &["inspect", "import", "simulate", "scan", "sweep", "count", "chsh", "clock-fit", "demo"];
 /// The commands that read tag files.
-const READERS: &[&str] = &["inspect", "import", "scan", "sweep", "count", "chsh"];
+const READERS: &[&str] = &["inspect", "import", "scan", "sweep", "count", "chsh", "clock-fit"];
 /// The commands that write result tables.
 const TABLES: &[&str] = &["scan", "sweep", "count", "chsh"];
 /// The commands that count coincidences over one block's inputs.
 const BLOCK: &[&str] = &["scan", "sweep", "count"];
 /// The commands that estimate accidentals.
 const ACC: &[&str] = &["sweep", "count", "chsh"];
-const ALL: &[&str] = &["inspect", "import", "simulate", "scan", "sweep", "count", "chsh", "demo", "completions"];
+const ALL: &[&str] = &["inspect", "import", "simulate", "scan", "sweep", "count", "chsh", "clock-fit", "demo", "completions"];
 
 /// A concept: (what it is, its one long flag, its short letter, the commands that show it).
 type Concept = (&'static str, &'static str, Option<char>, &'static [&'static str]);
@@ -36,13 +36,13 @@ const CONCEPTS: &[Concept] = &[
     ("JSON on stdout", "json", None, ALL),
     ("worker threads", "threads", None, WORKERS),
     ("buffered reads instead of memory maps", "no-mmap", None, READERS),
-    ("where results go (file or directory)", "output", Some('o'), &["import", "simulate", "scan", "sweep", "count", "chsh", "demo"]),
-    ("replace an existing output", "force", None, &["import", "simulate", "scan", "sweep", "count", "chsh"]),
-    ("record layout of interleaved-record inputs", "layout", None, &["inspect", "import", "scan", "sweep", "count"]),
+    ("where results go (file or directory)", "output", Some('o'), &["import", "simulate", "scan", "sweep", "count", "chsh", "clock-fit", "demo"]),
+    ("replace an existing output", "force", None, &["import", "simulate", "scan", "sweep", "count", "chsh", "clock-fit"]),
+    ("record layout of interleaved-record inputs", "layout", None, &["inspect", "import", "scan", "sweep", "count", "clock-fit"]),
     ("pass over the data (auto, whole, stream)", "pass", None, &["scan", "sweep", "count", "chsh"]),
     ("channel pairs", "pairs", None, BLOCK),
-    ("delay of one channel, CH=PS", "delay", None, &["scan", "sweep", "count", "chsh"]),
-    ("delays file", "delays", None, &["scan", "sweep", "count", "chsh"]),
+    ("delay of one channel, CH=PS", "delay", None, &["scan", "sweep", "count", "chsh", "clock-fit"]),
+    ("delays file", "delays", None, &["scan", "sweep", "count", "chsh", "clock-fit"]),
     ("coincidence window w", "window-ps", Some('w'), &["simulate", "count", "chsh"]),
     ("off-peak window offsets", "acc-offsets-ps", None, ACC),
     ("no off-peak windows", "no-offpeak", None, ACC),
@@ -77,6 +77,15 @@ const CONCEPTS: &[Concept] = &[
     // records) on the one command that writes tag files, where no table format exists.
     ("file format of the simulated blocks", "format", None, &["simulate"]),
     ("leave the delays out of run.toml", "omit-delays", None, &["simulate"]),
+    ("channels on the second recorder's clock", "second-site", None, &["simulate", "clock-fit"]),
+    ("clock file mapping the second site's channels", "clock", None, BLOCK),
+    ("offsets searched by the clock fit, ± s", "offset-range-s", None, &["clock-fit"]),
+    ("frequency offsets searched by the clock fit, ± ppm", "ppm-range", None, &["clock-fit"]),
+    ("second recorder's frequency offset, ppm", "clock-ppm", None, &["simulate"]),
+    ("second recorder's start offset, s", "clock-offset-s", None, &["simulate"]),
+    ("Allan deviation of the second recorder at 1 s", "clock-adev", None, &["simulate"]),
+    ("time of a jump of the second recorder", "clock-step-at-s", None, &["simulate"]),
+    ("size of that jump", "clock-step-ps", None, &["simulate"]),
 ];
 
 /// Old spellings kept hidden, each warning and pointing to the one name: (command, old, new).
@@ -191,7 +200,7 @@ fn input_help_names_every_input_form() {
             seen.insert(sub.get_name().to_string());
         }
     }
-    let want: BTreeSet<String> = ["inspect", "import", "scan", "sweep", "count"].iter().map(|c| c.to_string()).collect();
+    let want: BTreeSet<String> = ["inspect", "import", "scan", "sweep", "count", "clock-fit"].iter().map(|c| c.to_string()).collect();
     assert_eq!(seen, want, "the commands with INPUT arguments");
 }
 

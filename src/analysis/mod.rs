@@ -2,5 +2,6 @@
 
 pub mod bell3;
 pub mod chsh;
+pub mod clock_fit;
 pub mod stats;
 pub mod visibility;

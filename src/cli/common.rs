@@ -20,12 +20,19 @@ pub struct InputArgs {
     /// everything else whole), `whole` or `stream`.
     #[arg(long = "pass", default_value = "auto", value_name = "MODE")]
     pub pass: String,
+    /// Clock file from `clock-fit`: map its second-site channels onto the first site's time
+    /// before the coincidence rule (whole passes only; docs/clocks.md).
+    #[arg(long, value_name = "FILE")]
+    pub clock: Option<PathBuf>,
     #[command(flatten)]
     pub read: super::ReadArgs,
 }
 
 impl InputArgs {
     pub fn mode(&self) -> Result<tagsieve::pipeline::PassMode> {
+        if self.clock.is_some() && self.pass == "auto" {
+            return Ok(tagsieve::pipeline::PassMode::Whole); // a clock map needs a whole pass
+        }
         tagsieve::pipeline::PassMode::parse(&self.pass)
     }
 }

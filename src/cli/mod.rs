@@ -1,6 +1,7 @@
 //! One file per subcommand; each parses its arguments and calls the library.
 
 pub mod chsh;
+pub mod clock_fit;
 pub mod common;
 pub mod completions;
 pub mod count;
@@ -114,7 +115,28 @@ use tagsieve::Result;
 pub fn open(input: &common::InputArgs, g: &Global) -> Result<Vec<Box<dyn TagSource>>> {
     let sources = tagsieve::pipeline::open_block(&input.inputs, input.layout.as_deref(), input.read.read_options())?;
     note_old_extensions(&sources, g);
-    Ok(sources)
+    let Some(path) = &input.clock else { return Ok(sources) };
+    let map = std::sync::Arc::new(tagsieve::tags::clock::ClockMap::load(path)?);
+    let tally = std::sync::Arc::new(std::sync::Mutex::new(tagsieve::tags::clock::MapTally::default()));
+    let n = sources.len();
+    let (quiet, shown) = (g.quiet, path.display().to_string());
+    Ok(sources
+        .into_iter()
+        .enumerate()
+        .map(|(i, inner)| {
+            // the last source drops last: it reports the tally of the whole block
+            let shown = shown.clone();
+            let on_drop: Option<tagsieve::read::clocked::TallyReport> = (i + 1 == n && !quiet).then(|| {
+                Box::new(move |t: &tagsieve::tags::clock::MapTally| {
+                    eprintln!(
+                        "clock map {shown}: {} second-site tags mapped; not counted: {} outside the fitted span, {} in lost segments, {} before time 0",
+                        t.mapped, t.outside_span, t.in_lost_span, t.below_zero
+                    )
+                }) as tagsieve::read::clocked::TallyReport
+            });
+            Box::new(tagsieve::read::clocked::ClockedSource { inner, map: map.clone(), tally: tally.clone(), on_drop }) as Box<dyn TagSource>
+        })
+        .collect())
 }
 
 /// A note on stderr for each container still named `.sieve` (unless --quiet).

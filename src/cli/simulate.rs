@@ -59,6 +59,26 @@ pub struct Args {
     /// Leave the true cable delays out of run.toml (so they must be found with scan).
     #[arg(long)]
     pub omit_delays: bool,
+    /// Two recorders: re-stamp these channels (comma-separated) on a second recorder's own
+    /// clock, and write each block's true clock map beside it as BLOCK.clock-true.toml.
+    /// Default: one recorder. The field deployment's second site is 3,4.
+    #[arg(long, value_name = "CH,...", value_delimiter = ',')]
+    pub second_site: Option<Vec<u32>>,
+    /// Second recorder: frequency offset ε, ppm (positive: its clock runs fast).
+    #[arg(long, default_value_t = 7.3, value_name = "PPM", allow_negative_numbers = true, requires = "second_site")]
+    pub clock_ppm: f64,
+    /// Second recorder: its time at the first recorder's time 0, s (the start offset).
+    #[arg(long, default_value_t = 0.4, value_name = "S", allow_negative_numbers = true, requires = "second_site")]
+    pub clock_offset_s: f64,
+    /// Second recorder: Allan deviation of its wander at 1 s (random walk in frequency; 0: none).
+    #[arg(long, default_value_t = 1e-10, value_name = "ADEV", requires = "second_site")]
+    pub clock_adev: f64,
+    /// Second recorder: a forward jump of its clock at this time, s (with --clock-step-ps).
+    #[arg(long, value_name = "S", requires_all = ["second_site", "clock_step_ps"])]
+    pub clock_step_at_s: Option<f64>,
+    /// Second recorder: size of that jump, ps (≥ 0).
+    #[arg(long, value_name = "PS", requires = "clock_step_at_s")]
+    pub clock_step_ps: Option<f64>,
     #[command(flatten)]
     pub threads: super::ThreadArgs,
 }
@@ -95,7 +115,8 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     let cfg = config(&args)?;
     let total_ms = (args.duration_s * 1e3).floor().max(0.0) as u64 * cfg.blocks.len() as u64;
     let progress = Progress::items("simulate ms", total_ms, g.quiet);
-    let summary = simulate::write_run(&cfg, &args.output_dir()?, args.force, &progress)?;
+    let second = second_site(&args);
+    let summary = simulate::write_run_two_site(&cfg, second.as_ref(), &args.output_dir()?, args.force, &progress)?;
     if g.json {
         let text = serde_json::to_string_pretty(&summary).map_err(|e| Error::Usage(format!("simulate: JSON summary: {e}")))?;
         println!("{text}");
@@ -107,6 +128,19 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         println!("{} blocks, {} tags; manifest {}", summary.blocks.len(), summary.total_tags, summary.manifest.display());
     }
     Ok(())
+}
+
+fn second_site(args: &Args) -> Option<simulate::SecondSite> {
+    let channels = args.second_site.clone()?;
+    let step = args.clock_step_at_s.zip(args.clock_step_ps).map(|(at_s, size_ps)| simulate::clocks::ClockStep { at_s, size_ps });
+    let clock = simulate::clocks::SiteClock {
+        ppm: args.clock_ppm,
+        start_offset_ps: args.clock_offset_s * 1e12,
+        adev_1s: args.clock_adev,
+        step,
+        seed: args.seed,
+    };
+    Some(simulate::SecondSite { channels, clock })
 }
 
 fn config(args: &Args) -> Result<RunConfig> {

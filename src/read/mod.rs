@@ -9,6 +9,7 @@
 
 pub mod channel_array;
 pub mod check;
+pub mod clocked;
 pub mod container;
 pub mod convert;
 pub mod layout;

@@ -2,6 +2,7 @@
 //! or a local-hidden-variable stand-in, read by up to four detectors with efficiency,
 //! dark counts, jitter, cable delay and dead time. Deterministic per seed, whatever the thread count.
 
+pub mod clocks;
 pub mod plan;
 pub mod run;
 pub mod rng;
@@ -12,7 +13,7 @@ use rayon::prelude::*;
 use rng::{mix_seed, Rng};
 
 pub use plan::{chsh_labels, plan_blocks, BlockPlan, SettingLabel};
-pub use run::{write_run, RunConfig, RunSummary};
+pub use run::{write_run, write_run_two_site, RunConfig, RunSummary, SecondSite};
 
 /// What decides the two outcomes of a pair.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

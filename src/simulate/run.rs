@@ -1,6 +1,7 @@
 //! A whole simulated run on disk: every block's tag file(s) in the chosen format, plus the
 //! run manifest `run.toml` listing exactly what was written (used by `tagsieve simulate`).
 
+use super::clocks::{restamp_second_site, SiteClock};
 use super::{block_seed, simulate_block_reporting, BlockPlan, DetectorModel, SourceModel};
 use crate::manifest::{BlockSpec, ChannelSpec, InputFormat, Manifest, Role, Roles, Settings, Setup, MANIFEST_VERSION};
 use crate::sys::progress::Progress;
@@ -138,10 +139,39 @@ impl RunConfig {
 /// Simulate every block of `cfg` and write it into `out_dir` (created if missing), then the
 /// manifest. Refuses to replace any existing file unless `force`; checks all names first.
 pub fn write_run(cfg: &RunConfig, out_dir: &Path, force: bool, progress: &Progress) -> Result<RunSummary> {
+    write_run_two_site(cfg, None, out_dir, force, progress)
+}
+
+/// The second site of a two-site run: its channels and its recorder's clock.
+#[derive(Debug, Clone)]
+pub struct SecondSite {
+    pub channels: Vec<Channel>,
+    pub clock: SiteClock,
+}
+
+/// Name of the true clock map written beside block `block` of a two-site run.
+pub fn true_map_file(block: &str) -> String {
+    format!("{block}.clock-true.toml")
+}
+
+/// [`write_run`], with the channels of `second` (if given) re-stamped on the second
+/// recorder's clock, a fresh clock realisation per block (seed from the clock's seed and
+/// the block index), and each block's true map written as `<block>.clock-true.toml`.
+pub fn write_run_two_site(cfg: &RunConfig, second: Option<&SecondSite>, out_dir: &Path, force: bool, progress: &Progress) -> Result<RunSummary> {
     let duration_ps = cfg.duration_ps()?;
     let manifest = cfg.manifest(out_dir);
     let manifest_path = out_dir.join(MANIFEST_FILE);
     check_outputs(cfg, out_dir, &manifest_path, force)?;
+    if let Some(s) = second {
+        if !force {
+            if let Some(p) = cfg.blocks.iter().map(|b| out_dir.join(true_map_file(&b.name))).find(|p| p.exists()) {
+                return Err(Error::OutputExists(p));
+            }
+        }
+        if let Some(ch) = s.channels.iter().find(|ch| !cfg.detectors.iter().any(|d| d.channel == **ch)) {
+            return Err(Error::Usage(format!("simulate: second-site channel {ch} is not a simulated detector")));
+        }
+    }
     // All files appear together at the end: an interrupted or failed run leaves none.
     let batch = crate::sys::atomic::OutputBatch::begin();
     let layout = RecordLayout::from_spec(RECORDS_LAYOUT_SPEC)?;
@@ -149,9 +179,14 @@ pub fn write_run(cfg: &RunConfig, out_dir: &Path, force: bool, progress: &Progre
     for (k, plan) in cfg.blocks.iter().enumerate() {
         let on_ms = |ms: u64| progress.inc(ms);
         progress.set_message(format!("block {}", plan.name));
-        let tags =
+        let mut tags =
             simulate_block_reporting(&cfg.source, &cfg.detectors, plan.setting, duration_ps, block_seed(cfg.seed, k as u64), &on_ms)?;
         let files: Vec<PathBuf> = cfg.block_files(plan).0.iter().map(|f| out_dir.join(f)).collect();
+        if let Some(s) = second {
+            let clock = SiteClock { seed: crate::simulate::rng::mix_seed(&[s.clock.seed, k as u64]), ..s.clock.clone() };
+            let map = restamp_second_site(&mut tags, &s.channels, &clock, duration_ps)?;
+            map.save(&out_dir.join(true_map_file(&plan.name)), force)?;
+        }
         write_block(cfg.format, &files, &tags, &layout)?;
         blocks.push(BlockSummary {
             name: plan.name.clone(),
