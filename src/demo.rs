@@ -240,7 +240,7 @@ fn demo_provenance(manifest: &Path, files: &[PathBuf], window_ps: u64, delays: &
     let mut p = Provenance::new(std::env::args().collect())
         .param("command", AttrValue::Str("demo".into()))
         .param("window_ps", AttrValue::U64(window_ps))
-        .param("delays_ps", AttrValue::Str(format!("{:?}", delays.by_channel)))
+        .param_json("delays_ps", &delays.by_channel)
         .input(manifest)?;
     for f in files {
         p = p.input(f)?;

@@ -17,8 +17,12 @@ fn write_array(path: &Path, times_ps: impl Iterator<Item = u64>) {
 /// The (a, b) row of a `count --json` report: (coincidences, heralded, off-peak counts).
 fn json_row(stdout: &[u8], a: u64, b: u64) -> (u64, u64, Vec<u64>) {
     let v: serde_json::Value = serde_json::from_slice(stdout).unwrap();
-    let row = v["blocks"][0]["coincidences"].as_array().unwrap().iter().find(|r| r["a"] == a && r["b"] == b).unwrap().clone();
-    let offs = row["acc_offset_counts"].as_array().unwrap().iter().map(|x| x.as_u64().unwrap()).collect();
+    let row = common::doc_rows(&v, "/blocks/block/coincidences").into_iter().find(|r| r["a"] == a && r["b"] == b).unwrap();
+    let offs = common::doc_rows(&v, "/blocks/block/off_peak_windows")
+        .iter()
+        .filter(|r| r["a"] == a && r["b"] == b)
+        .map(|r| r["counts"].as_u64().unwrap())
+        .collect();
     (row["coincidences"].as_u64().unwrap(), row["heralded"].as_u64().unwrap(), offs)
 }
 

@@ -2,7 +2,7 @@
 //! manifest, checked against published bounds.
 
 mod common;
-use common::tagsieve;
+use common::{doc_at, doc_rows, tagsieve};
 use serde_json::Value;
 
 fn simulate(dir: &std::path::Path, extra: &[&str]) {
@@ -17,7 +17,7 @@ fn chsh_json(manifest: &std::path::Path) -> Value {
 }
 
 fn primary(v: &Value, kind: &str) -> (f64, f64) {
-    let s = v["chsh"]["s_values"].as_array().unwrap().iter().find(|s| s["is_primary"] == true && s["kind"] == kind).unwrap().clone();
+    let s = doc_rows(v, "/chsh/s_values").into_iter().find(|s| s["is_primary"] == 1 && s["kind"] == kind).unwrap();
     (s["s"].as_f64().unwrap(), s["s_sigma"].as_f64().unwrap())
 }
 
@@ -46,7 +46,7 @@ fn local_hidden_variable_source_stays_within_two() {
     simulate(d.path(), &["--model", "lhv", "--seed", "9", "--duration-s", "1"]);
     let j = chsh_json(&d.path().join("run.toml"));
     for kind in ["raw", "accidental-corrected"] {
-        for s in j["chsh"]["s_values"].as_array().unwrap().iter().filter(|s| s["kind"] == kind) {
+        for s in doc_rows(&j, "/chsh/s_values").iter().filter(|s| s["kind"] == kind) {
             let (v, sig) = (s["s"].as_f64().unwrap(), s["s_sigma"].as_f64().unwrap());
             assert!(v.abs() <= 2.0 + 3.0 * sig, "{kind} {}: {v} ± {sig}", s["formula"]);
         }
@@ -59,8 +59,8 @@ fn visibility_series_recovers_simulated_visibility() {
     let d = tempfile::tempdir().unwrap();
     simulate(d.path(), &["--visibility", "0.8", "--seed", "3", "--duration-s", "0.5", "--series", "0,20,40,60,80,100,120,140,160"]);
     let j = chsh_json(&d.path().join("run.toml"));
-    assert!(j["chsh"].is_null(), "a series has no CHSH settings");
-    let fit = &j["visibility"][0];
+    assert!(doc_at(&j, "/chsh").is_null(), "a series has no CHSH settings");
+    let fit = &doc_rows(&j, "/visibility/fits")[0];
     let (v, sig) = (fit["visibility"].as_f64().unwrap(), fit["visibility_sigma"].as_f64().unwrap());
     assert!((v - 0.8).abs() < 3.0 * sig, "V {v} ± {sig}");
     assert!(fit["theta0_deg"].as_f64().unwrap().abs() < 3.0 * fit["theta0_sigma_deg"].as_f64().unwrap() + 0.5);
@@ -74,8 +74,9 @@ fn three_setting_form_is_violated_at_thirty_degree_steps() {
     let d = tempfile::tempdir().unwrap();
     simulate(d.path(), &["--angles", "0,30,30,60", "--seed", "13", "--duration-s", "1"]);
     let j = chsh_json(&d.path().join("run.toml"));
-    let b = &j["bell3"];
-    assert_eq!(b["angles_deg"], serde_json::json!([0.0, 30.0, 60.0]), "{j}");
+    let b = &doc_at(&j, "/bell3")["attrs"];
+    let angles: Value = serde_json::from_str(b["angles_deg"].as_str().unwrap()).unwrap();
+    assert_eq!(angles, serde_json::json!([0.0, 30.0, 60.0]), "{j}");
     let (lhs, rhs, sig) = (b["lhs"].as_f64().unwrap(), b["rhs"].as_f64().unwrap(), b["margin_sigma"].as_f64().unwrap());
     let v: f64 = 0.95;
     assert!((lhs - v).abs() < 4.0 * sig && (rhs - (1.0 - 0.5 * v)).abs() < 4.0 * sig, "lhs {lhs} rhs {rhs} σ {sig}");

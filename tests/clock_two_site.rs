@@ -342,7 +342,7 @@ fn counting_with_the_map_keeps_the_coincidences() {
         let out = c.output().unwrap();
         assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
         let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
-        v["blocks"][0]["coincidences"].as_array().unwrap().iter().map(|r| r["coincidences"].as_u64().unwrap()).collect()
+        common::doc_rows(&v, "/blocks/block/coincidences").iter().map(|r| r["coincidences"].as_u64().unwrap()).collect()
     };
     let one = count("one", "1", false);
     let mapped = count("two", "1", true);

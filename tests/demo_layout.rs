@@ -55,7 +55,7 @@ fn demo_file_keeps_scans_and_sweeps_apart_and_writes_no_empty_table() {
         assert_eq!(children(&format!("scans/{s}")), ["delays", "scans", "singles"], "/scans/{s}");
     }
     assert_eq!(children("sweeps"), ["ab"]);
-    assert_eq!(children("sweeps/ab"), ["delays", "singles", "sweeps"]);
+    assert_eq!(children("sweeps/ab"), ["delays", "off_peak_windows", "singles", "sweeps"]);
     assert_eq!(children("sweeps/ab/sweeps"), ["1-3", "1-4", "2-3", "2-4"]);
     // No empty tables: every dataset has rows.
     let datasets = v["datasets"].as_object().unwrap();

@@ -51,10 +51,17 @@ fn arrays(dir: &Path) -> [String; 2] {
     [format!("1={}", a.display()), format!("2={}", b.display())]
 }
 
-fn offsets(v: &Value) -> Vec<i64> {
-    let mut o: Vec<i64> = v["acc_offsets_ps"].as_array().unwrap().iter().map(|x| x.as_i64().unwrap()).collect();
+/// The off-peak offsets of the block's row (a, b, window) of `doc`, sorted.
+fn offsets(doc: &Value, row: &Value) -> Vec<i64> {
+    let mut o: Vec<i64> = off_peak(doc, row).iter().map(|r| r["offset_ps"].as_i64().unwrap()).collect();
     o.sort_unstable();
     o
+}
+
+/// The off_peak_windows rows of one coincidence or sweep row (same a, b, window_ps).
+fn off_peak(doc: &Value, row: &Value) -> Vec<Value> {
+    let same = |r: &Value| ["a", "b", "window_ps"].iter().all(|k| r[*k] == row[*k]);
+    common::doc_rows(doc, "/blocks/block/off_peak_windows").into_iter().filter(same).collect()
 }
 
 fn run_json(args: &[&str], inputs: &[String]) -> Value {
@@ -69,7 +76,7 @@ fn count_places_the_windows_by_the_formula_below_and_above_one_microsecond() {
     let inputs = arrays(dir.path());
     for (w, want) in [("500", OFFSETS_W500), ("3000000", OFFSETS_W3US)] {
         let v = run_json(&["count", "-w", w], &inputs);
-        assert_eq!(offsets(&v["blocks"][0]["coincidences"][0]), want, "count -w {w}");
+        assert_eq!(offsets(&v, &common::doc_rows(&v, "/blocks/block/coincidences")[0]), want, "count -w {w}");
     }
 }
 
@@ -78,20 +85,22 @@ fn each_sweep_row_uses_its_own_window_and_equals_count_there() {
     let dir = tempfile::tempdir().unwrap();
     let inputs = arrays(dir.path());
     let v = run_json(&["sweep", "--windows-ps", "500,3000000"], &inputs);
-    let rows = v["sweeps"][0]["rows"].as_array().unwrap();
+    let rows = common::doc_rows(&v, "/blocks/block/sweeps/1-2");
     assert_eq!(rows.len(), 2);
     assert_eq!(rows[0]["window_ps"], 500);
-    assert_eq!(offsets(&rows[0]), OFFSETS_W500, "sweep row at 500 ps");
+    assert_eq!(offsets(&v, &rows[0]), OFFSETS_W500, "sweep row at 500 ps");
     assert_eq!(rows[1]["window_ps"], 3_000_000);
-    assert_eq!(offsets(&rows[1]), OFFSETS_W3US, "sweep row at 3 µs");
+    assert_eq!(offsets(&v, &rows[1]), OFFSETS_W3US, "sweep row at 3 µs");
     // A row is the count at its window, off-peak windows included.
     for (row, w) in rows.iter().zip(["500", "3000000"]) {
         let c = run_json(&["count", "-w", w], &inputs);
-        assert_eq!(row, &c["blocks"][0]["coincidences"][0], "sweep row vs count -w {w}");
+        let counted = &common::doc_rows(&c, "/blocks/block/coincidences")[0];
+        assert_eq!(row, counted, "sweep row vs count -w {w}");
+        assert_eq!(off_peak(&v, row), off_peak(&c, counted), "off-peak windows of the sweep row vs count -w {w}");
     }
     // Offsets given by hand stay the same on every row.
     let v = run_json(&["sweep", "--windows-ps", "500,900", "--acc-offsets-ps=-5000000,5000000"], &inputs);
-    for row in v["sweeps"][0]["rows"].as_array().unwrap() {
-        assert_eq!(offsets(row), [-5_000_000, 5_000_000]);
+    for row in common::doc_rows(&v, "/blocks/block/sweeps/1-2") {
+        assert_eq!(offsets(&v, &row), [-5_000_000, 5_000_000]);
     }
 }

@@ -25,19 +25,25 @@ fn by_channel<'a>(rows: &'a Value, key: &str) -> Vec<(u64, &'a Value)> {
 fn inspect_and_count_report_the_same_rate_per_channel() {
     let inspect = json_of(&["inspect"]);
     let count = json_of(&["count", "-w", "1000", "--pairs", "1:3"]);
-    let block = &count["blocks"][0];
+    let block = common::doc_at(&count, "/blocks/block");
+    let singles = common::doc_rows(&count, "/blocks/block/singles");
     let expected: Value =
         serde_json::from_str(&std::fs::read_to_string(root().join("fixtures/arrays.expected.json")).unwrap()).unwrap();
 
     // The live time: inspect's totals, count's singles and NumPy's max − min + 1 agree.
     let live = expected["totals"]["live_time_ps"].as_u64().unwrap();
     assert_eq!(inspect["totals"]["live_time_ps"].as_u64(), Some(live));
-    for (ch, t) in by_channel(&block["singles"], "live_time_ps") {
-        assert_eq!(t.as_u64(), Some(live), "count: channel {ch} live time");
+    // count: the block span in integer ps, and each channel's live time in s.
+    let span = |k: &str| block["attrs"][k].as_u64().unwrap();
+    assert_eq!(span("span_end_ps") - span("span_start_ps"), live, "count: block span");
+    for (ch, t) in by_channel(&Value::from(singles.clone()), "live_time_s") {
+        let t = t.as_f64().unwrap();
+        assert!((t - live as f64 / 1e12).abs() <= 1e-15 * t, "count: channel {ch} live time {t} s, NumPy {live} ps");
     }
 
     let from_inspect = by_channel(&inspect["channels"], "rate_hz");
-    let from_count = by_channel(&block["singles"], "rate_hz");
+    let singles = Value::from(singles);
+    let from_count = by_channel(&singles, "rate_hz");
     let from_numpy = by_channel(&expected["channels"], "rate_hz");
     assert_eq!(from_inspect.len(), 2);
     for (((ci, ri), (cc, rc)), (cn, rn)) in from_inspect.iter().zip(&from_count).zip(&from_numpy) {

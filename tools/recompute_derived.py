@@ -341,7 +341,9 @@ def main():
     diffs = Diffs()
     checked = []
     with h5py.File(args.hdf5, "r") as f:
-        slice_ps = int(f.attrs["param.slice_ps"])
+        # The slice length as given (--slice-s), turned into ps as the tool does: rounded
+        # half away from zero, at least 1 ps.
+        slice_ps = max(1, int(math.floor(float(f.attrs["param.slice_s"]) * 1e12 + 0.5)))
         offsets_ps = parse_offsets(f.attrs["param.acc_offsets_ps"])
         blocks = f["blocks"]
         if args.tags:

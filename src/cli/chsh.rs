@@ -99,19 +99,20 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
             tagsieve::output::plot::plot_visibility(fit, pts, &path, true)?;
         }
     }
-    if let Some(out) = &args.out.output {
+    if super::wants_tables(&args.out, g) {
         let mut prov = Provenance::new(common::command_line())
             .param("command", AttrValue::Str("chsh".into()))
             .param("manifest", AttrValue::Str(args.manifest.display().to_string()))
             .param("window_ps", AttrValue::U64(window_ps))
-            .param("delays_ps", AttrValue::Str(format!("{:?}", cfg.delays.by_channel)))
-            .param("acc_offsets_ps", AttrValue::Str(format!("{:?}", cfg.offsets_ps)))
-            .param("slice_ps", AttrValue::U64(cfg.slice_ps));
+            .param_json("delays_ps", &cfg.delays.by_channel)
+            .param_json("acc_offsets_ps", &cfg.offsets_ps)
+            .param("slice_s", AttrValue::F64(args.acc.slice_s))
+            .param("bell3_convention", AttrValue::Str(args.bell3_convention.clone()));
         prov = prov.input(&args.manifest)?;
         for f in &files {
             prov = prov.input(f)?;
         }
-        super::write_tables(&outcome.blocks, prov, analysis_groups(&outcome), out, &args.out)?;
+        super::write_tables(&outcome.blocks, prov, analysis_groups(&outcome), &args.out, g)?;
     }
     if !args.out.to_stdout() {
         print(&outcome, g);
@@ -176,8 +177,7 @@ fn suffixed(p: &std::path::Path, tag: &str) -> PathBuf {
 
 fn print(o: &ChshOutcome, g: &Global) {
     if g.json {
-        common::print_json(&json(o));
-        return;
+        return; // the Document went out
     }
     println!("window {}", common::ps(o.window_ps as f64));
     if let Some(r) = &o.chsh {
@@ -213,36 +213,4 @@ fn print(o: &ChshOutcome, g: &Global) {
             a, r.lhs, r.rhs, r.margin.value, r.margin.sigma, r.violation_sigma
         );
     }
-}
-
-fn json(o: &ChshOutcome) -> serde_json::Value {
-    let chsh = o.chsh.as_ref().map(|r| {
-        serde_json::json!({
-            "correlations": r.correlation_rows().iter().map(|c| serde_json::json!({
-                "setting_pair": c.pair, "angle_a_deg": c.angle_a_deg, "angle_b_deg": c.angle_b_deg,
-                "counts": c.counts, "e_raw": c.e_raw.value, "e_raw_sigma": c.e_raw.sigma,
-                "e_corrected": c.e_corrected.map(|e| e.value), "e_corrected_sigma": c.e_corrected.map(|e| e.sigma),
-            })).collect::<Vec<_>>(),
-            "s_values": r.variant_rows().iter().map(|v| serde_json::json!({
-                "formula": v.formula, "kind": v.kind, "s": v.variant.s, "s_sigma": v.variant.sigma,
-                "violation_sigma": v.variant.violation_sigma, "p_value": v.variant.p_value,
-                "violates_bound": v.variant.violates_bound(),
-                "is_primary": v.is_primary, "is_max": v.is_max,
-            })).collect::<Vec<_>>(),
-            "caution": layout_analysis::CAUTION,
-        })
-    });
-    serde_json::json!({
-        "window_ps": o.window_ps,
-        "blocks": o.blocks.iter().map(super::block_json).collect::<Vec<_>>(),
-        "chsh": chsh,
-        "visibility": o.visibility.iter().map(|(f, _)| serde_json::json!({
-            "basis": f.label, "visibility": f.visibility.value, "visibility_sigma": f.visibility.sigma,
-            "theta0_deg": f.phase_deg.value, "theta0_sigma_deg": f.phase_deg.sigma, "reduced_chi2": f.reduced_chi2,
-        })).collect::<Vec<_>>(),
-        "bell3": o.bell3.as_ref().map(|(a, r)| serde_json::json!({
-            "angles_deg": a, "lhs": r.lhs, "rhs": r.rhs, "margin": r.margin.value, "margin_sigma": r.margin.sigma,
-            "violation_sigma": r.violation_sigma, "p_value": r.p_value,
-        })),
-    })
 }

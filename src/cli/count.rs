@@ -38,9 +38,9 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     let mode = args.input.mode()?;
     let sources = super::open(&args.input, g)?;
     let blocks = vec![pipeline::count_sources(&args.label, &sources, &cfg, mode, g.quiet)?];
-    if let Some(out) = &args.out.output {
+    if super::wants_tables(&args.out, g) {
         let prov = provenance(&args, &cfg, &sources)?;
-        super::write_tables(&blocks, prov, vec![], out, &args.out)?;
+        super::write_tables(&blocks, prov, vec![], &args.out, g)?;
     }
     if !args.out.to_stdout() {
         print_counts(&blocks, g);
@@ -52,20 +52,19 @@ fn provenance(args: &Args, cfg: &CountConfig, sources: &[Box<dyn read::TagSource
     let mut p = Provenance::new(common::command_line())
         .param("command", AttrValue::Str("count".into()))
         .param("window_ps", AttrValue::U64(cfg.window_ps))
-        .param("slice_ps", AttrValue::U64(cfg.slice_ps))
-        .param("acc_offsets_ps", AttrValue::Str(format!("{:?}", cfg.offsets_ps)))
-        .param("delays_ps", AttrValue::Str(format!("{:?}", cfg.delays.by_channel)));
+        .param("slice_s", AttrValue::F64(args.acc.slice_s))
+        .param_json("acc_offsets_ps", &cfg.offsets_ps)
+        .param_json("delays_ps", &cfg.delays.by_channel);
     if let Some(l) = &args.input.layout {
         p = p.param("layout", AttrValue::Str(l.clone()));
     }
     super::add_inputs(p, sources)
 }
 
-/// Coincidence tables on stdout (human table or JSON); counts in groups of three digits,
-/// as `inspect` prints them.
+/// Coincidence tables on stdout as a human table (with `--json` the Document went out
+/// instead); counts in groups of three digits, as `inspect` prints them.
 pub fn print_counts(blocks: &[BlockTables], g: &Global) {
     if g.json {
-        common::print_json(&serde_json::json!({ "blocks": blocks.iter().map(super::block_json).collect::<Vec<_>>() }));
         return;
     }
     for b in blocks {

@@ -161,17 +161,24 @@ pub fn add_inputs(mut p: Provenance, sources: &[Box<dyn TagSource>]) -> Result<P
     Ok(p)
 }
 
-/// Write blocks (plus extra groups such as /chsh) to `out` in the chosen format.
-pub fn write_tables(blocks: &[BlockTables], prov: Provenance, extra: Vec<Group>, out: &Path, args: &common::OutputArgs) -> Result<()> {
-    let mut doc = output::layout::run_document(blocks, &prov);
-    doc.root.groups.extend(extra);
-    let dest = if out.as_os_str() == "-" { None } else { Some(out) };
-    output::write_document(&doc, dest, args.format, args.force)
+/// Whether the run's Document is wanted: a table file (`-o`) or `--json`.
+pub fn wants_tables(out: &common::OutputArgs, g: &Global) -> bool {
+    out.output.is_some() || g.json
 }
 
-/// One block as JSON for `--json`.
-pub fn block_json(b: &BlockTables) -> serde_json::Value {
-    serde_json::to_value(b).unwrap_or_default()
+/// The run's Document (blocks plus extra groups such as /chsh): to `-o` in the chosen
+/// format, and with `--json` the same Document as JSON on stdout (unless `-o -` took it).
+pub fn write_tables(blocks: &[BlockTables], prov: Provenance, extra: Vec<Group>, args: &common::OutputArgs, g: &Global) -> Result<()> {
+    let mut doc = output::layout::run_document(blocks, &prov);
+    doc.root.groups.extend(extra);
+    if let Some(out) = &args.output {
+        let dest = if out.as_os_str() == "-" { None } else { Some(out.as_path()) };
+        output::write_document(&doc, dest, args.format, args.force)?;
+    }
+    if g.json && !args.to_stdout() {
+        output::json::print_document(&doc)?;
+    }
+    Ok(())
 }
 
 /// `plot.png` → `plot-1-3.png` when there are several pairs.

@@ -81,13 +81,14 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
             tagsieve::output::plot::plot_scan(s, None, args.log, &path, true)?;
         }
     }
-    if let Some(out) = &args.out.output {
+    if super::wants_tables(&args.out, g) {
         let p = Provenance::new(common::command_line())
             .param("command", AttrValue::Str("scan".into()))
             .param("half_range_ps", AttrValue::U64(cfg.half_range_ps))
             .param("bin_ps", AttrValue::U64(cfg.bin_ps));
         let p = super::add_inputs(p, &sources)?;
-        super::write_tables(std::slice::from_ref(&block), p, vec![], out, &args.out)?;
+        let proposed = proposal.iter().map(|d| tagsieve::output::layout::proposal_group(d, &args.delays_out)).collect();
+        super::write_tables(std::slice::from_ref(&block), p, proposed, &args.out, g)?;
     }
     if !args.out.to_stdout() {
         print_scan(&block, proposal.as_ref(), &args, g);
@@ -127,16 +128,7 @@ fn propose(block: &BlockTables, r: Channel, channels: &[Channel], given: &engine
 
 fn print_scan(block: &BlockTables, proposal: Option<&engine::Delays>, args: &Args, g: &Global) {
     if g.json {
-        let mut v = super::block_json(block);
-        if let Some(d) = proposal {
-            let keyed = |m: &std::collections::BTreeMap<Channel, String>| serde_json::json!(m.iter().map(|(k, v)| (k.to_string(), v.clone())).collect::<std::collections::BTreeMap<_, _>>());
-            v["proposed_delays_ps"] = serde_json::json!(d.by_channel.iter().map(|(k, v)| (k.to_string(), *v)).collect::<std::collections::BTreeMap<_, _>>());
-            v["delays_obtained"] = keyed(&d.obtained);
-            v["delays_not_found"] = keyed(&d.not_found);
-            v["delays_file"] = serde_json::json!(args.delays_out);
-        }
-        common::print_json(&v);
-        return;
+        return; // the Document went out, /proposed_delays included
     }
     let bin = block.scans.first().map(|s| common::ps(s.bin_ps as f64)).unwrap_or_default();
     println!("{:>6} {:>14} {:>10} {:>10} {:>12} {:>12}", "pair", "peak Δ", "σ", "FWHM", "height", "background");

@@ -78,15 +78,21 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
             tagsieve::output::plot::plot_sweep(s, &super::per_pair_path(plot, s.a, s.b, block.sweeps.len()), true)?;
         }
     }
-    if let Some(out) = &args.out.output {
-        let p = Provenance::new(common::command_line())
+    if super::wants_tables(&args.out, g) {
+        let mut p = Provenance::new(common::command_line())
             .param("command", AttrValue::Str("sweep".into()))
-            .param("windows_ps", AttrValue::Str(format!("{windows:?}")))
-            .param("criterion", AttrValue::Str(crit.name()))
-            .param("slice_ps", AttrValue::U64(cfg.slice_ps))
-            .param("acc_offsets_ps", AttrValue::Str(offpeak_text(&offpeak)));
+            .param_json("windows_ps", &windows)
+            .param("criterion", AttrValue::Str(args.criterion.clone()))
+            .param("slice_s", AttrValue::F64(args.acc.slice_s));
+        if let Criterion::PeakFraction(f) = crit {
+            p = p.param("fraction", AttrValue::F64(f));
+        }
+        p = match &offpeak {
+            sweep::OffPeak::Fixed(v) => p.param_json("acc_offsets_ps", v),
+            sweep::OffPeak::PerWindow => p.param("acc_offsets_ps", AttrValue::Str(PER_WINDOW_RULE.into())),
+        };
         let p = super::add_inputs(p, &sources)?;
-        super::write_tables(std::slice::from_ref(&block), p, vec![], out, &args.out)?;
+        super::write_tables(std::slice::from_ref(&block), p, vec![], &args.out, g)?;
     }
     if !args.out.to_stdout() {
         print_sweep(&block, g);
@@ -94,18 +100,12 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     Ok(())
 }
 
-/// The off-peak offsets as a provenance value: the list, or the per-window rule.
-fn offpeak_text(offpeak: &sweep::OffPeak) -> String {
-    match offpeak {
-        sweep::OffPeak::Fixed(v) => format!("{v:?}"),
-        sweep::OffPeak::PerWindow => "per window w: ±(max(2000000, 2W) + k·W), k = 0…4, W = 2⌊w/2⌋+1".into(),
-    }
-}
+/// The off-peak offsets of a sweep that places each window's own, as a provenance value.
+const PER_WINDOW_RULE: &str = "per window w: ±(max(2000000, 2W) + k·W), k = 0…4, W = 2⌊w/2⌋+1";
 
 fn print_sweep(block: &BlockTables, g: &Global) {
     if g.json {
-        common::print_json(&super::block_json(block));
-        return;
+        return; // the Document went out
     }
     for s in &block.sweeps {
         println!("pair {}:{}  (δ = {}; recommended window {} by {})", s.a, s.b, common::ps(s.rel_delay_ps as f64), common::ps(s.recommended_window_ps as f64), s.criterion);

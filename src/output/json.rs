@@ -1,7 +1,8 @@
 //! JSON writer: the Document as nested objects. A group is
 //! `{"attrs": {..}, "tables": {name: table}, "groups": {name: group}}`, a table is
 //! `{"attrs": {..}, "columns": {name: {"unit", "dtype", "data": [..]}}}`; keys keep document order.
-//! JSON has no NaN or infinity: such floats are written as `null`.
+//! JSON has no NaN or infinity: such floats are written as `null`. This is the one JSON
+//! serializer of a Document: `--format json` files and `--json` on stdout both go through it.
 
 use super::{AttrValue, Column, ColumnData, Document, Group, Table, Writer};
 use crate::{Error, Result};
@@ -24,6 +25,11 @@ impl Writer for JsonWriter {
     fn can_stdout(&self) -> bool {
         true
     }
+}
+
+/// `--json`: the Document on stdout, byte for byte what `--format json` writes to a file.
+pub fn print_document(doc: &Document) -> Result<()> {
+    super::write_document(doc, None, super::Format::Json, false)
 }
 
 /// Write `doc` as JSON to any byte sink (a file, stdout, a Vec).

@@ -9,8 +9,11 @@ use crate::Channel;
 
 /// Bumped whenever a path, dtype or unit below changes. 2: tables with no rows and empty
 /// `scans`/`sweeps` groups are left out; the demo's scan and sweep blocks moved out of
-/// `/blocks` into `/scans` and `/sweeps`.
-pub const LAYOUT_VERSION: u64 = 2;
+/// `/blocks` into `/scans` and `/sweeps`. 3: `/proposed_delays` (scan with a reference);
+/// list and map parameters as JSON text; `param.slice_s` in the unit given (was
+/// `param.slice_ps`); `/bell3@convention` as typed, `/bell3@angles_deg` as JSON text;
+/// `off_peak_windows` holds the sweep rows' off-peak windows too.
+pub const LAYOUT_VERSION: u64 = 3;
 
 /// The whole output of a run: provenance at the root, `/provenance/inputs`, and one
 /// group per block under `/blocks/<label>`.
@@ -39,6 +42,37 @@ pub fn run_document_parts(blocks: &[BlockTables], scans: &[BlockTables], sweeps:
     Document { root }
 }
 
+/// `/proposed_delays`, beside `/blocks` when `scan --reference` proposes delays: the
+/// reference channel and the delays file as attributes, a `found` table (the delays
+/// written, each with how it was obtained) and a `not_found` table (channels left out, with
+/// the reason); a table with no rows is left out.
+pub fn proposal_group(d: &crate::engine::Delays, delays_file: &std::path::Path) -> Group {
+    let mut g = Group::new(PROPOSED_DELAYS);
+    if let Some(r) = d.reference {
+        g.attrs.push(("reference".into(), AttrValue::U64(u64::from(r))));
+    }
+    g.attrs.push(("delays_file".into(), AttrValue::Str(delays_file.display().to_string())));
+    let found: Vec<(Channel, i64)> = d.by_channel.iter().map(|(&c, &v)| (c, v)).collect();
+    let obtained = found.iter().map(|(c, _)| d.obtained.get(c).cloned().unwrap_or_default()).collect();
+    let missing: Vec<(Channel, &String)> = d.not_found.iter().map(|(&c, why)| (c, why)).collect();
+    g.tables = [
+        Table::new("found")
+            .col("channel", "", u64s(&found, |f| u64::from(f.0)))
+            .col("delay_ps", "ps", i64s(&found, |f| f.1))
+            .col("obtained", "", ColumnData::Str(obtained)),
+        Table::new("not_found")
+            .col("channel", "", u64s(&missing, |f| u64::from(f.0)))
+            .col("reason", "", ColumnData::Str(missing.iter().map(|f| f.1.clone()).collect())),
+    ]
+    .into_iter()
+    .filter(|t| t.rows() > 0)
+    .collect();
+    g
+}
+
+/// Root group of [`proposal_group`].
+pub const PROPOSED_DELAYS: &str = "proposed_delays";
+
 /// Root groups of [`run_document_parts`] for scan and sweep blocks.
 pub const SCAN_BLOCKS: &str = "scans";
 pub const SWEEP_BLOCKS: &str = "sweeps";
@@ -59,7 +93,7 @@ pub fn block_group(b: &BlockTables) -> Group {
         singles_table(&b.singles),
         delays_table(&b.delays_ps),
         coincidence_table("coincidences", &b.coincidences),
-        off_peak_table(&b.coincidences),
+        off_peak_table(b.coincidences.iter().chain(b.sweeps.iter().flat_map(|s| &s.rows))),
     ]
     .into_iter()
     .filter(|t| t.rows() > 0)
@@ -141,10 +175,11 @@ fn coincidence_table(name: &str, rows: &[CoincidenceRow]) -> Table {
         .col("acc_agreement_sigma", "1", f64s(rows, |r| r.acc_agreement_sigma))
 }
 
-/// The raw off-peak window counts behind `acc_measured`: one row per pair and offset.
-fn off_peak_table(rows: &[CoincidenceRow]) -> Table {
+/// The raw off-peak window counts behind `acc_measured`: one row per pair, window and
+/// offset, for the block's coincidences and every sweep row alike.
+fn off_peak_table<'a>(rows: impl IntoIterator<Item = &'a CoincidenceRow>) -> Table {
     let flat: Vec<(&CoincidenceRow, i64, u64)> = rows
-        .iter()
+        .into_iter()
         .flat_map(|r| r.acc_offsets_ps.iter().zip(&r.acc_offset_counts).map(move |(&o, &n)| (r, o, n)))
         .collect();
     Table::new("off_peak_windows")
@@ -233,6 +268,11 @@ pub fn sample_document() -> Document {
     prov.inputs.push(super::provenance::InputRecord { path: "{input}".into(), size_bytes: 0, xxh3: "{xxh3}".into() });
     let mut doc = run_document(&[sample_block()], &prov);
     rename_pairs(&mut doc.root);
+    let mut proposal = crate::engine::Delays { reference: Some(1), ..Default::default() };
+    proposal.by_channel.insert(1, 0);
+    proposal.obtained.insert(1, "reference channel".into());
+    proposal.not_found.insert(2, "no peak".into());
+    doc.root.groups.push(proposal_group(&proposal, std::path::Path::new("{delays_file}")));
     doc.root.groups.extend(sample_analysis_groups());
     doc
 }
@@ -362,11 +402,13 @@ fn rows_meaning(table_path: &str, column: &str) -> &'static str {
         ("inputs", _) => "input files",
         ("singles", _) | ("delays", _) => "channels",
         ("coincidences", _) => "channel pairs",
-        ("off_peak_windows", _) => "channel pairs × off-peak windows",
+        ("off_peak_windows", _) => "(pair, window) rows of coincidences and sweeps × off-peak windows",
         ("correlations", _) => "setting pairs",
         ("s_values", _) => "S variants × (raw, corrected)",
         ("fits", _) => "bases",
         ("points_{basis}", _) => "angles measured",
+        ("found", _) => "channels given a delay",
+        ("not_found", _) => "channels left without one",
         _ => "rows",
     }
 }
@@ -387,7 +429,7 @@ fn note_for(kind: EntryKind, path: &str) -> &'static str {
         "singles" => "per-channel singles of the block",
         "delays" => "per-channel delay d applied before pairing",
         "coincidences" if kind == EntryKind::Group => "one row per channel pair at the block's window",
-        "off_peak_windows" => "raw counts behind acc_measured",
+        "off_peak_windows" => "raw counts behind acc_measured, of the coincidences and of every sweep row (a, b, window_ps)",
         "scans" => "delay histograms, one table per pair",
         "sweeps" => "window sweeps, one table per pair",
         "{a}-{b}" if in_scan || parent.ends_with("scans") => "histogram of Δ; fitted peak as attributes",
@@ -396,7 +438,7 @@ fn note_for(kind: EntryKind, path: &str) -> &'static str {
         "tool_version" => "version of the program (Cargo package version)",
         "command_line" => "full command line, shell-quoted",
         "created_utc" => "creation time, ISO 8601 UTC",
-        "param.{key}" => "one attribute per run parameter (type follows the value)",
+        "param.{key}" => "one attribute per run parameter (type follows the value; lists and maps as JSON text)",
         "layout_version" => "version of this layout",
         "checksum" => "checksum algorithm of the xxh3 column",
         "path" => "input path as given",
@@ -432,6 +474,13 @@ fn note_for(kind: EntryKind, path: &str) -> &'static str {
         "peak_height" | "peak_background" => "peak height and flat background, counts per bin",
         "peak_net_counts" => "background-subtracted counts in the peak",
         "recommended_window_ps" => "window chosen by the criterion",
+        "proposed_delays" => "delays proposed by `scan --reference` (written to the delays file)",
+        "found" => "the delays written, relative to the reference",
+        "not_found" => "channels the scan found no delay for",
+        "reference" => "reference channel (its delay is 0)",
+        "delays_file" => "delays file written, path as given",
+        "obtained" => "how the delay was obtained",
+        "reason" => "why no delay was found",
         "criterion" => "how the window was chosen",
         _ => "",
     }
@@ -473,8 +522,8 @@ fn analysis_note(path: &str, name: &str) -> &'static str {
         "angle_deg" => "analyzer angle",
         "counts" => "coincidences at the angle",
         "bell3" => "three-setting form abs(E(a,b) − E(a,c)) ≤ 1 + E(b,c)",
-        "convention" => "AntiCorrelated applies the form to E; Correlated to −E",
-        "angles_deg" => "the three settings a, b, c",
+        "convention" => "as `--bell3-convention`: anti-correlated applies the form to E, correlated to −E",
+        "angles_deg" => "the three settings a, b, c (JSON text, e.g. `[0.0,22.5,45.0]`)",
         "e_ab" | "e_ac" | "e_bc" => "measured correlations before any sign flip",
         "lhs" | "rhs" => "the two sides of the form",
         "margin" | "margin_sigma" => "lhs − rhs, ±1σ; > 0 is a violation",
@@ -545,6 +594,14 @@ Layout version {LAYOUT_VERSION} (root attribute `layout_version`).
   counted blocks.
 - Provenance: the root attributes name the tool (`tool`, the program name) and its version
   (`tool_version`), the full command line and the UTC creation time; `/provenance/inputs` lists every input file with its size and XXH3-64 checksum.
+- Parameters (`param.{key}`): numbers as `u64`/`i64`/`f64`; choices as typed on the command
+  line (`param.criterion = net-significance`, `param.bell3_convention = anti-correlated`);
+  durations in the unit of their flag (`param.window_ps`, `param.slice_s`); lists and maps
+  as JSON text (`param.delays_ps = {\"1\":0,\"2\":850}`, `param.acc_offsets_ps`,
+  `param.windows_ps`), read with `json.loads(f.attrs[\"param.delays_ps\"])`. A sweep that
+  places each window's own off-peak windows stores that rule as plain text in
+  `param.acc_offsets_ps` (it starts `per window`).
+- `tagsieve scan --reference CH` adds `/proposed_delays`: what it wrote to the delays file.
 - `tagsieve chsh` adds `/chsh`, `/visibility` and `/bell3` beside `/blocks` (documented
   below from a sample); `points_{basis}` is one table per fitted basis.
 - CSV output (`--format csv`) holds the same tree in one file: `# group /path` and
@@ -553,9 +610,15 @@ Layout version {LAYOUT_VERSION} (root attribute `layout_version`).
   path (`DIR/blocks/{label}/singles.csv`, `DIR/blocks/{label}/scans/{a}-{b}.csv`): one
   header line of the column names above, no comment lines, the rows (a histogram's last
   `counts` cell is empty); `DIR/attributes.json` holds every group's and table's attributes
-  (provenance at `/`) and each column's unit, type and row count. JSON output nests
-  `{\"attrs\", \"tables\", \"groups\"}` objects; a table is `{\"attrs\", \"columns\"}` and a column
-  `{\"unit\", \"dtype\", \"data\"}`; NaN and infinities become `null`.
+  (provenance at `/`) and each column's unit, type and row count.
+- JSON (`--format json`, and `--json` on stdout for `count`, `scan`, `sweep` and `chsh`:
+  the same Document through the same writer) nests `{\"attrs\", \"tables\", \"groups\"}`
+  objects in the order above; a table is `{\"attrs\", \"columns\"}` and a column
+  `{\"unit\", \"dtype\", \"data\"}` (names, units and dtypes as listed below); an attribute is
+  a plain JSON number or string; NaN and infinities become `null`. Path `/blocks/{label}/singles`
+  is `doc[\"groups\"][\"blocks\"][\"groups\"][\"{label}\"][\"tables\"][\"singles\"]`. Commands
+  with no tables (`inspect`, `import`, `simulate`, `clock-fit`, `demo`) print a summary of
+  their own with `--json`, under the same conventions (units in names, `x` beside `x_sigma`).
 ";
 
 #[cfg(test)]

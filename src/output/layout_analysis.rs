@@ -86,8 +86,8 @@ pub fn visibility_group(fits: &[(VisibilityFit, Vec<AnglePoint>)]) -> Group {
 pub fn bell3_group(r: &Bell3Result, angles_deg: [f64; 3]) -> Group {
     let mut g = Group::new("bell3");
     g.attrs = vec![
-        ("convention".into(), AttrValue::Str(format!("{:?}", r.convention))),
-        ("angles_deg".into(), AttrValue::Str(format!("{angles_deg:?}"))),
+        ("convention".into(), AttrValue::Str(convention_name(r.convention).into())),
+        ("angles_deg".into(), AttrValue::Str(serde_json::to_string(&angles_deg).unwrap_or_default())),
         ("e_ab".into(), AttrValue::F64(r.e_ab.value)),
         ("e_ac".into(), AttrValue::F64(r.e_ac.value)),
         ("e_bc".into(), AttrValue::F64(r.e_bc.value)),
@@ -99,6 +99,15 @@ pub fn bell3_group(r: &Bell3Result, angles_deg: [f64; 3]) -> Group {
         ("p_value".into(), AttrValue::F64(r.p_value)),
     ];
     g
+}
+
+/// The convention as `--bell3-convention` spells it.
+pub fn convention_name(c: crate::analysis::bell3::Convention) -> &'static str {
+    use crate::analysis::bell3::Convention;
+    match c {
+        Convention::Correlated => "correlated",
+        Convention::AntiCorrelated => "anti-correlated",
+    }
 }
 
 /// `a'` → `a_prime`, anything else non-alphanumeric → `_`.

@@ -47,6 +47,13 @@ impl Provenance {
         self
     }
 
+    /// Record a list or map parameter as JSON text (a string attribute that `json.loads`
+    /// reads back; map keys become strings: `{"1":0,"2":850}`), never Rust debug text.
+    pub fn param_json(self, key: impl Into<String>, value: &impl serde::Serialize) -> Self {
+        let text = serde_json::to_string(value).unwrap_or_else(|e| format!("unserialisable: {e}"));
+        self.param(key, AttrValue::Str(text))
+    }
+
     /// Record an input: reads the whole file once for its checksum.
     pub fn input(mut self, path: &Path) -> Result<Self> {
         self.inputs.push(InputRecord::of(path)?);
@@ -199,5 +206,14 @@ mod tests {
         assert_eq!(get("command_line"), Some(AttrValue::Str("tagsieve count 'a b.tags'".into())));
         assert_eq!(get("param.window_ps"), Some(AttrValue::U64(800)));
         assert_eq!(get("tool_version"), Some(AttrValue::Str(env!("CARGO_PKG_VERSION").into())));
+    }
+
+    #[test]
+    fn list_and_map_params_are_json_text() {
+        let delays: std::collections::BTreeMap<u32, i64> = [(1, 0), (2, 850)].into_iter().collect();
+        let p = Provenance::new(vec![]).param_json("delays_ps", &delays).param_json("acc_offsets_ps", &vec![-2_000_000i64, 2_000_000]);
+        // JSON (RFC 8259) object keys are strings; arrays are comma-separated in brackets.
+        assert_eq!(p.params[0].1, AttrValue::Str(r#"{"1":0,"2":850}"#.into()));
+        assert_eq!(p.params[1].1, AttrValue::Str("[-2000000,2000000]".into()));
     }
 }

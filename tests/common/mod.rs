@@ -78,3 +78,28 @@ impl SplitMix64 {
         out
     }
 }
+
+/// A group or table of a Document in JSON (`--json`, `--format json`; docs/hdf5-layout.md):
+/// `/blocks/block/coincidences` is `doc["groups"]["blocks"]["groups"]["block"]["tables"]
+/// ["coincidences"]`. `Null` where there is none.
+pub fn doc_at<'a>(doc: &'a serde_json::Value, path: &str) -> &'a serde_json::Value {
+    let parts: Vec<&str> = path.split('/').filter(|p| !p.is_empty()).collect();
+    let mut v = doc;
+    for (i, name) in parts.iter().enumerate() {
+        if i + 1 == parts.len() && v["tables"].get(*name).is_some() {
+            return &v["tables"][*name];
+        }
+        v = &v["groups"][*name];
+    }
+    v
+}
+
+/// The rows of a Document table as objects keyed by column name (a histogram's extra
+/// `bin_edges_ps` element is left out of the rows). Panics when there is no such table.
+pub fn doc_rows(doc: &serde_json::Value, path: &str) -> Vec<serde_json::Value> {
+    let cols = doc_at(doc, path)["columns"].as_object().unwrap_or_else(|| panic!("no table {path} in {doc}"));
+    let n = cols.values().map(|c| c["data"].as_array().unwrap().len()).min().unwrap_or(0);
+    (0..n)
+        .map(|i| serde_json::Value::Object(cols.iter().map(|(k, c)| (k.clone(), c["data"][i].clone())).collect()))
+        .collect()
+}
