@@ -224,3 +224,46 @@ fn parameters_read_back_with_h5py_and_json_loads() {
         }
     }
 }
+
+/// Every `x_sigma` key of a JSON summary (but a significance) has its `x` beside it, and
+/// no value is a bare `[value, sigma]` pair.
+fn check_conventions(v: &Value, what: &str) {
+    match v {
+        Value::Object(m) => {
+            for (k, x) in m {
+                // A significance in units of σ (`violation_raw_sigma`, as in /chsh) has no `x`.
+                if let Some(base) = k.strip_suffix("_sigma").filter(|_| !k.contains("violation")) {
+                    assert!(m.contains_key(base), "{what}: {k} without {base}");
+                }
+                check_conventions(x, what);
+            }
+        }
+        Value::Array(a) => {
+            assert!(!(a.len() == 2 && a.iter().all(Value::is_f64)), "{what}: a bare pair {v}");
+            a.iter().for_each(|x| check_conventions(x, what));
+        }
+        _ => {}
+    }
+}
+
+#[test]
+fn summaries_without_tables_follow_the_same_conventions() {
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    // import: the events written, as many as the inputs hold (8 bytes per u64 tag).
+    let fx = common::root().join("fixtures");
+    let inputs = [format!("1={}", fx.join("larch_plus.u64").display()), format!("3={}", fx.join("rowan_plus.u64").display())];
+    let v = json(dir, &["import", &inputs[0], &inputs[1], "-o", "x.tsieve"]);
+    let bytes: u64 = ["larch_plus.u64", "rowan_plus.u64"].iter().map(|f| std::fs::metadata(fx.join(f)).unwrap().len()).sum();
+    assert_eq!(v["events"].as_u64(), Some(bytes / 8), "{v}");
+    check_conventions(&v, "import");
+    // demo: S as `s_raw` beside `s_raw_sigma`, equal to what h5py reads from its run.h5.
+    let v = json(dir, &["demo", "-o", "demo", "--duration-s", "0.2"]);
+    check_conventions(&v, "demo");
+    let script = "import sys, h5py\nf = h5py.File(sys.argv[1], 'r')\nprint(repr(float(f['chsh'].attrs['s_raw'])), repr(float(f['chsh'].attrs['s_raw_sigma'])))";
+    let out = common::python().arg("-c").arg(script).arg(dir.join("demo/run.h5")).output().unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let text = String::from_utf8(out.stdout).unwrap();
+    let h5: Vec<f64> = text.split_whitespace().map(|x| x.parse().unwrap()).collect();
+    assert_eq!((v["s_raw"].as_f64().unwrap(), v["s_raw_sigma"].as_f64().unwrap()), (h5[0], h5[1]), "{v}");
+}

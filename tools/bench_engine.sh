@@ -86,12 +86,13 @@ T_CAT=$(best_of "$REPS" sh -c 'cat "$0" "$1" >/dev/null' "$A" "$B")   # to /dev/
 COUNT=("$TS" count -q --json --threads "$THREADS" --pairs 1:3 --delay 3=$DELTA_PS -w $WINDOW_PS "1=$A" "3=$B")
 T_COUNT0=$(best_of "$REPS" "${COUNT[@]}" --no-offpeak)
 T_COUNT=$(best_of "$REPS" "${COUNT[@]}")
-TS_PAIRS=$("$PYTHON" -c 'import json,sys; r=json.load(open(sys.argv[1]))["blocks"][0]["coincidences"][0]; print(r["coincidences"], r["heralded"])' "$OUTFILE")
-OFFSETS=$("$PYTHON" -c 'import json,sys; r=json.load(open(sys.argv[1]))["blocks"][0]["coincidences"][0]; print(",".join(map(str, r["acc_offsets_ps"])))' "$OUTFILE")
-TS_OFF=$("$PYTHON" -c 'import json,sys; r=json.load(open(sys.argv[1]))["blocks"][0]["coincidences"][0]; print(",".join(map(str, r["acc_offset_counts"])))' "$OUTFILE")
+# --json prints the Document (docs/hdf5-layout.md): tables are columns under groups.
+TS_PAIRS=$("$PYTHON" -c 'import json,sys; d=json.load(open(sys.argv[1]))["groups"]["blocks"]["groups"]["block"]; c=d["tables"]["coincidences"]["columns"]; print(c["coincidences"]["data"][0], c["heralded"]["data"][0])' "$OUTFILE")
+OFFSETS=$("$PYTHON" -c 'import json,sys; d=json.load(open(sys.argv[1]))["groups"]["blocks"]["groups"]["block"]; o=d["tables"]["off_peak_windows"]["columns"]; print(",".join(map(str, o["offset_ps"]["data"])))' "$OUTFILE")
+TS_OFF=$("$PYTHON" -c 'import json,sys; d=json.load(open(sys.argv[1]))["groups"]["blocks"]["groups"]["block"]; o=d["tables"]["off_peak_windows"]["columns"]; print(",".join(map(str, o["counts"]["data"])))' "$OUTFILE")
 SCAN=("$TS" scan -q --json --threads "$THREADS" --pairs 1:3 --delay 3=$DELTA_PS --half-range-ps $SPAN_PS --bin-ps $BIN_PS "1=$A" "3=$B")
 T_SCAN=$(best_of "$REPS" "${SCAN[@]}")
-TS_HIST=$("$PYTHON" -c 'import json,sys; d=json.load(open(sys.argv[1])); print(",".join(map(str, d["scans"][0]["counts"])))' "$OUTFILE")
+TS_HIST=$("$PYTHON" -c 'import json,sys; d=json.load(open(sys.argv[1]))["groups"]["blocks"]["groups"]["block"]; print(",".join(map(str, d["groups"]["scans"]["tables"]["1-3"]["columns"]["counts"]["data"])))' "$OUTFILE")
 
 # (c) NumPy on the same files (once each: they take minutes).
 PREFIX_ARGS=()

@@ -49,7 +49,7 @@ measure() {
     local rss wall pairs
     rss=$(awk -F': ' '/Maximum resident set size/ { print $2 }' "$log")
     wall=$(awk -F': ' '/Elapsed \(wall clock\)/ { print $2 }' "$log")
-    pairs=$(python3 -c 'import json,sys; r=json.load(open(sys.argv[1]))["blocks"][0]["coincidences"][0]; print(r["coincidences"])' "$log.out")
+    pairs=$(python3 -c 'import json,sys; d=json.load(open(sys.argv[1]))["groups"]["blocks"]["groups"]["block"]; print(d["tables"]["coincidences"]["columns"]["coincidences"]["data"][0])' "$log.out")
     printf '%-22s wall %-9s max RSS %7.1f MiB  peak RssAnon %7.1f MiB  coincidences %s\n' \
         "${*:-mapped (default)}" "$wall" "$(echo "$rss / 1024" | bc -l)" "$(echo "$peak / 1024" | bc -l)" "$pairs"
     rm -f "$log" "$log.out"

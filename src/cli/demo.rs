@@ -3,7 +3,7 @@
 use super::common;
 use super::Global;
 use std::path::PathBuf;
-use tagsieve::demo::{run_demo, DemoConfig};
+use tagsieve::demo::{run_demo, DemoConfig, DemoSummary};
 use tagsieve::Result;
 
 #[derive(clap::Args, Debug)]
@@ -33,7 +33,7 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     let duration_s = super::deprecated(args.block_s, "--block-s", "--duration-s").unwrap_or(args.duration_s);
     let s = run_demo(&DemoConfig { out_dir, seed: args.seed, duration_s, quiet: g.quiet || g.json })?;
     if g.json {
-        common::print_json(&serde_json::to_value(&s).unwrap_or_default());
+        common::print_json(&summary_json(&s));
         return Ok(());
     }
     println!("tagsieve demo — simulated Larch–Rowan link, {} tags in 4 blocks", tagsieve::units::fmt_count(s.events));
@@ -65,4 +65,32 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
         println!("  {}", p.display());
     }
     Ok(())
+}
+
+/// The demo's summary for `--json`, under the Document's conventions (docs/hdf5-layout.md):
+/// units in names, each estimate `x` beside `x_sigma`, per-pair values as `{a, b, …}` rows;
+/// the S names are those of `/chsh`, the visibility's those of `/visibility/fits`.
+fn summary_json(s: &DemoSummary) -> serde_json::Value {
+    use serde_json::json;
+    let per_pair = |key: &str, v: Vec<((u32, u32), serde_json::Value)>| -> Vec<serde_json::Value> {
+        v.into_iter().map(|((a, b), x)| json!({ "a": a, "b": b, key: x })).collect()
+    };
+    json!({
+        "events": s.events,
+        "delays": s.delays,
+        "peaks": per_pair("peak_fwhm_ps", s.fwhm_ps.iter().map(|&(p, f)| (p, json!(f))).collect()),
+        "window_ps": s.window_ps,
+        "recommended": per_pair("recommended_window_ps", s.recommended_ps.iter().map(|&(p, w)| (p, json!(w))).collect()),
+        "car": per_pair("car", s.car.iter().map(|&(p, c)| (p, json!(c))).collect()),
+        "s_raw": s.s_raw.0,
+        "s_raw_sigma": s.s_raw.1,
+        "violation_raw_sigma": s.violation_sigma,
+        "s_corrected": s.s_corrected.map(|x| x.0),
+        "s_corrected_sigma": s.s_corrected.map(|x| x.1),
+        "verdict": s.verdict,
+        "visibility": s.visibility.map(|x| x.0),
+        "visibility_sigma": s.visibility.map(|x| x.1),
+        "tables": s.tables,
+        "plots": s.plots,
+    })
 }

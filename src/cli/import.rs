@@ -39,6 +39,13 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     let progress = tagsieve::progress::Progress::items("import", total, g.quiet);
     let summary = convert::import(&sources, &args.output, args.force, tick, &progress)?;
     progress.finish();
+    if g.json {
+        // Under the Document's conventions (docs/hdf5-layout.md): counts as plain numbers,
+        // one row object per channel.
+        let channels: Vec<serde_json::Value> = summary.channels.iter().map(|&(channel, events)| serde_json::json!({ "channel": channel, "events": events })).collect();
+        let events: u64 = summary.channels.iter().map(|c| c.1).sum();
+        super::common::print_json(&serde_json::json!({ "container": summary.path, "channels": channels, "events": events }));
+    }
     if !g.quiet {
         let events: u64 = summary.channels.iter().map(|c| c.1).sum();
         eprintln!("wrote {} ({} channels, {} events)", summary.path.display(), summary.channels.len(), fmt_count(events));
