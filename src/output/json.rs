@@ -21,9 +21,6 @@ impl Writer for JsonWriter {
         out.flush().map_err(|e| Error::io(dest, e))
     }
 
-    fn can_stdout(&self) -> bool {
-        true
-    }
 }
 
 /// Write `doc` as JSON to any byte sink (a file, stdout, a Vec).

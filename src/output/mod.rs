@@ -156,12 +156,10 @@ pub struct Document {
 /// chosen by [`atomic`]); they never rename or clean up.
 pub trait Writer {
     fn write(&self, doc: &Document, dest: &Path) -> Result<()>;
-    /// Whether the format can stream to stdout (`-o -`).
-    fn can_stdout(&self) -> bool;
 }
 
-/// An output format, chosen with `--format`.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+/// An output format (the command line's `--format`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Format {
     /// HDF5 file (groups, one dataset per column, `units` attributes).
     Hdf5,
@@ -184,6 +182,17 @@ impl Format {
             Format::Csv => Box::new(csv::CsvWriter),
             Format::CsvDir => Box::new(csv_dir::CsvDirWriter),
             Format::Json => Box::new(json::JsonWriter),
+        }
+    }
+
+    /// The format of a name as the user types it (`hdf5`, `csv`, `csv-dir`, `json`; any case).
+    pub fn from_name(name: &str) -> Option<Format> {
+        match name.to_ascii_lowercase().as_str() {
+            "hdf5" => Some(Format::Hdf5),
+            "csv" => Some(Format::Csv),
+            "csv-dir" => Some(Format::CsvDir),
+            "json" => Some(Format::Json),
+            _ => None,
         }
     }
 
