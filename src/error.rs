@@ -20,7 +20,7 @@ pub enum Error {
     },
     /// Timestamps of a channel handed to the engine unchecked
     /// ([`crate::ChannelTags::order_checked`] false) that go backwards or pass 2^62 ps.
-    /// The pipeline replaces it with the reader's located error
+    /// The block pass (`jobs::pass`) replaces it with the reader's located error
     /// ([`crate::read::locate_disorder`]).
     #[error("channel {channel}: timestamps go backwards or reach 2^62 ps; expected ascending timestamps below 2^62 ps")]
     Unordered { channel: u32 },

@@ -63,10 +63,12 @@ fn check_scan(cfg: &ScanConfig) -> Result<PairTask> {
     if cfg.half_range_ps == 0 || cfg.bin_ps == 0 {
         return Err(Error::Usage(format!("scan: half-range {} ps and bin {} ps must both be > 0", cfg.half_range_ps, cfg.bin_ps)));
     }
-    rule::check_shift(cfg.half_range_ps as i64, "--half-range-ps")?;
+    if cfg.half_range_ps > rule::MAX_SPAN_PS {
+        return Err(Error::setting("half_range_ps", cfg.half_range_ps, format!("exceeds the limit of {} ps", rule::MAX_SPAN_PS)));
+    }
     let nbins = (2 * cfg.half_range_ps).div_ceil(cfg.bin_ps);
     if nbins > 50_000_000 {
-        return Err(Error::Usage(format!("scan: {nbins} bins is too many; widen --bin-ps or narrow --half-range-ps")));
+        return Err(Error::setting("bin_ps", cfg.bin_ps, format!("{nbins} bins is too many; expected at most 50000000 (widen the bins or narrow the half-range)")));
     }
     Ok(PairTask::Histogram { half_range_ps: cfg.half_range_ps, bin_ps: cfg.bin_ps })
 }

@@ -60,7 +60,7 @@ pub fn run(job: &ChshJob) -> Result<ChshOutcome> {
             value: m.window_ps.ok_or_else(|| {
                 Error::Usage(format!("{}: no window: give one, or set window_ps in the manifest (pick one with a sweep)", job.manifest.display()))
             })?,
-            from: format!("{}: window_ps", job.manifest.display()),
+            from: manifest_line(&job.manifest, "window_ps"),
         },
     };
     let window_ps = window.checked_window()?;
@@ -78,6 +78,17 @@ pub fn run(job: &ChshJob) -> Result<ChshOutcome> {
         outcome.document = Some(doc);
     }
     Ok(outcome)
+}
+
+/// Where a manifest sets `key`, for messages: `run.toml: line 7: window_ps` (the line
+/// left out when the file cannot be read again).
+fn manifest_line(path: &Path, key: &str) -> String {
+    let text = std::fs::read_to_string(path).unwrap_or_default();
+    let line = text.lines().position(|l| l.trim_start().strip_prefix(key).is_some_and(|rest| rest.trim_start().starts_with('=')));
+    match line {
+        Some(i) => format!("{}: line {}: {key}", path.display(), i + 1),
+        None => format!("{}: {key}", path.display()),
+    }
 }
 
 /// Two Alice and two Bob settings declare a CHSH set: each of the four setting pairs needs
