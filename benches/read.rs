@@ -112,7 +112,7 @@ fn sum_mapped(path: &Path, sum: impl Fn(&[u64]) -> u64) -> u64 {
 
 /// Open, validate and hand out every channel (zero-copy where the format allows).
 fn read_all(arg: &str, layout: Option<&RecordLayout>) -> usize {
-    let src = open_inputs(&[arg.to_string()], layout, ReadOptions::default()).expect("open");
+    let src = open_inputs(&[arg.to_string()], layout, ReadOptions::mapped()).expect("open");
     let chans = all_channels(&src).expect("read");
     chans.iter().map(|c| c.len()).sum()
 }

@@ -20,13 +20,17 @@ pub enum Error {
     },
     /// Timestamps of a channel handed to the engine unchecked
     /// ([`crate::ChannelTags::order_checked`] false) that go backwards or pass 2^62 ps.
-    /// The pipeline replaces it with the reader's located error
+    /// The block pass (`jobs::pass`) replaces it with the reader's located error
     /// ([`crate::read::locate_disorder`]).
     #[error("channel {channel}: timestamps go backwards or reach 2^62 ps; expected ascending timestamps below 2^62 ps")]
     Unordered { channel: u32 },
     /// A bad command-line value, layout or manifest entry (not file data).
     #[error("{0}")]
     Usage(String),
+    /// A job setting's value refused. `setting` is the setting's own name (a job field such
+    /// as `reference` or `delay`), never a flag: the command line shows it as its flag.
+    #[error("{setting} {value}: {message}")]
+    Setting { setting: &'static str, value: String, message: String },
     /// A configuration file (layout TOML, manifest, delays file) that does not parse.
     #[error("{path}: line {line}: {message}")]
     Config { path: PathBuf, line: usize, message: String },
@@ -51,7 +55,7 @@ impl Error {
     /// Exit code: 2 for bad input or usage, 1 for runtime failures, 130 for interruption.
     pub fn exit_code(&self) -> i32 {
         match self {
-            Error::BadInput { .. } | Error::Unordered { .. } | Error::Usage(_) | Error::Config { .. } | Error::OutputExists(_) => 2,
+            Error::BadInput { .. } | Error::Unordered { .. } | Error::Usage(_) | Error::Setting { .. } | Error::Config { .. } | Error::OutputExists(_) => 2,
             Error::Io { source, .. } => match source.kind() {
                 std::io::ErrorKind::NotFound | std::io::ErrorKind::PermissionDenied => 2,
                 std::io::ErrorKind::IsADirectory | std::io::ErrorKind::InvalidInput => 2,
@@ -68,6 +72,11 @@ impl Error {
             Error::BadInput { hint, .. } => hint.as_deref(),
             _ => None,
         }
+    }
+
+    /// A refused setting value (see [`Error::Setting`]).
+    pub fn setting(setting: &'static str, value: impl ToString, message: impl Into<String>) -> Self {
+        Error::Setting { setting, value: value.to_string(), message: message.into() }
     }
 
     pub fn io(path: impl Into<PathBuf>, source: std::io::Error) -> Self {

@@ -3,16 +3,15 @@
 //! Data walks this crate once, left to right:
 //! [`read`] (files → per-channel sorted picosecond slices) →
 //! [`engine`] (coincidences, delay histograms, window sweeps, accidentals) →
-//! [`analysis`] (CHSH, visibility, statistics) → [`output`] (HDF5, CSV, JSON, plots).
-//! No module reaches back upstream.
+//! [`analysis`] (CHSH, visibility, statistics) → [`output`] (HDF5, CSV, JSON, plots);
+//! [`jobs`] (one file per command) puts the stages together. No module reaches back upstream.
 
 pub mod analysis;
-pub mod demo;
 pub mod engine;
 pub mod error;
+pub mod jobs;
 pub mod manifest;
 pub mod output;
-pub mod pipeline;
 pub mod read;
 pub mod simulate;
 pub mod sys;

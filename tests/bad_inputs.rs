@@ -647,7 +647,7 @@ fn streamed_descent_found_by_the_engine_is_located_by_the_reader() {
     std::fs::write(d.path().join("r.bin"), records(&ev)).unwrap();
     let layout = RecordLayout::from_arg(LAYOUT16).unwrap();
     let path = d.path().join("r.bin").display().to_string();
-    let sources = read::open_inputs(&[path], Some(&layout), ReadOptions::default()).unwrap();
+    let sources = read::open_inputs(&[path], Some(&layout), ReadOptions::mapped()).unwrap();
     let e = read::locate_disorder_streamed::<()>(Err(tagsieve::Error::Unordered { channel: 2 }), sources[0].as_ref()).unwrap_err();
     let msg = e.to_string();
     assert_eq!(e.exit_code(), 2);

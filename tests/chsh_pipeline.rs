@@ -82,3 +82,25 @@ fn three_setting_form_is_violated_at_thirty_degree_steps() {
     assert!((lhs - v).abs() < 4.0 * sig && (rhs - (1.0 - 0.5 * v)).abs() < 4.0 * sig, "lhs {lhs} rhs {rhs} σ {sig}");
     assert!(b["violation_sigma"].as_f64().unwrap() > 5.0, "{b}");
 }
+
+/// A refused window is named where it came from: a `window_ps` the test writes into the
+/// manifest as its fifth line is reported at that line (a fact of the file written here),
+/// not under the flag; the same value given as the flag is refused under the flag.
+#[test]
+fn a_refused_window_names_where_it_came_from() {
+    let d = tempfile::tempdir().unwrap();
+    simulate(d.path(), &["--seed", "2", "--duration-s", "0.05"]);
+    let p = d.path().join("run.toml");
+    let text = std::fs::read_to_string(&p).unwrap();
+    let mut lines: Vec<&str> = text.lines().collect();
+    assert!(lines[..4].iter().all(|l| !l.starts_with('[')), "the first four lines are top-level keys:\n{text}");
+    lines.insert(4, "window_ps = 0");
+    std::fs::write(&p, lines.join("\n") + "\n").unwrap();
+    let out = tagsieve().args(["chsh", "-q"]).arg(&p).output().unwrap();
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(2), "{err}");
+    assert!(err.contains("run.toml: line 5: window_ps") && !err.contains("--window-ps"), "{err}");
+    let flag = tagsieve().args(["chsh", "-q", "-w", "0"]).arg(&p).output().unwrap();
+    assert_eq!(flag.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&flag.stderr).contains("--window-ps"), "{}", String::from_utf8_lossy(&flag.stderr));
+}

@@ -11,7 +11,7 @@ use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::process::Stdio;
 use std::sync::OnceLock;
-use tagsieve::pipeline::STREAM_CHUNK_EVENTS;
+use tagsieve::jobs::pass::STREAM_CHUNK_EVENTS;
 
 /// Layout of simulated record files (docs: `simulate --format records`).
 const LAYOUT: &str = "rec=16,time=0:8:le,chan=8:4:le,tick_ps=1";

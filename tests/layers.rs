@@ -23,7 +23,7 @@ const LAYERS: &[(&str, u32, &[&str])] = &[
     ("engine/analysis", 1, &["engine", "analysis"]),
     ("simulate", 2, &["simulate"]),
     ("output", 3, &["output"]),
-    ("jobs", 4, &["jobs", "pipeline", "demo"]),
+    ("jobs", 4, &["jobs"]),
     ("cli", 5, &["cli", "main"]),
 ];
 

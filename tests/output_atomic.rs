@@ -19,9 +19,6 @@ impl Writer for FailsMidway {
         std::fs::write(dest, b"partial bytes").map_err(|e| Error::io(dest, e))?;
         Err(Error::Output { path: dest.to_path_buf(), message: "disk full (simulated)".into() })
     }
-    fn can_stdout(&self) -> bool {
-        false
-    }
 }
 
 fn names(dir: &Path) -> Vec<String> {
@@ -105,6 +102,6 @@ fn format_follows_the_extension() {
     assert_eq!(Format::from_extension(Path::new("run.csv")), Some(Format::Csv));
     assert_eq!(Format::from_extension(Path::new("run.json")), Some(Format::Json));
     assert_eq!(Format::from_extension(Path::new("run.bin")), None);
-    use clap::ValueEnum;
-    assert_eq!(Format::from_str("hdf5", true), Ok(Format::Hdf5));
+    assert_eq!(Format::from_name("hdf5"), Some(Format::Hdf5));
+    assert_eq!(Format::from_name("CSV-DIR"), Some(Format::CsvDir));
 }

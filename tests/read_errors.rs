@@ -139,7 +139,7 @@ fn patched(dir: &Path, base: &[u8], at: usize, value: &[u8]) -> PathBuf {
 }
 
 fn open_err(p: &Path) -> String {
-    match Container::open(p, ReadOptions::default()).and_then(|c| c.channels().map(|_| ())) {
+    match Container::open(p, ReadOptions::mapped()).and_then(|c| c.channels().map(|_| ())) {
         Ok(()) => panic!("{} opened", p.display()),
         Err(e) => {
             assert_eq!(e.exit_code(), 2);
@@ -178,7 +178,7 @@ fn container_errors() {
     let e = open_err(&p);
     assert!(e.contains("record 1 (byte offset 232): found timestamp 0 ps after 1 ps"), "{e}");
     let empty = file(d.path(), "empty.tsieve", b"");
-    assert!(Container::open(&empty, ReadOptions::default()).unwrap_err().to_string().contains("empty file"));
+    assert!(Container::open(&empty, ReadOptions::mapped()).unwrap_err().to_string().contains("empty file"));
 }
 
 #[test]

@@ -37,7 +37,7 @@ fn assert_blocks_read_back(m: &Manifest) {
     let dets: Vec<_> = scenario_detectors().into_iter().filter(|d| m.role_of(d.channel).is_some()).collect();
     for (k, b) in m.blocks.iter().enumerate() {
         let layout = m.block_layout(b).map(|l| RecordLayout::from_arg(&l).unwrap());
-        let sources = read::open_inputs(&m.block_inputs(b), layout.as_ref(), ReadOptions::default()).unwrap();
+        let sources = read::open_inputs(&m.block_inputs(b), layout.as_ref(), ReadOptions::mapped()).unwrap();
         let mut got = read::all_channels(&sources).unwrap();
         got.sort_by_key(|c| c.channel);
         let (alpha, beta) = m.block_angles_deg(b).unwrap();

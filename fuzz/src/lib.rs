@@ -13,7 +13,8 @@ use tagsieve::manifest::Manifest;
 use tagsieve::sys::progress::Progress;
 use tagsieve::read::layout::RecordLayout;
 use tagsieve::read::records::Records;
-use tagsieve::read::{check, open_inputs, ReadOptions, TagSource};
+use tagsieve::jobs::inspect as check;
+use tagsieve::read::{open_inputs, ReadOptions, TagSource};
 use tagsieve::{Channel, Result};
 
 /// What an input led to: the reader refused it, or read it (with this many events).

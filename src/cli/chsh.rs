@@ -1,18 +1,18 @@
-//! `tagsieve chsh RUN.toml`: count every block of a run, then E per setting pair, S with
-//! σ_S and significance (raw and accidental-corrected), visibility fits and the
-//! three-setting form where the blocks allow.
+//! `tagsieve chsh RUN.toml`: arguments → a chsh job ([`tagsieve::jobs::chsh`]: every block
+//! counted, E per setting pair, S with σ_S, visibility fits, the three-setting form); its
+//! outcome → the tables, plots and the report on stdout.
 
 use super::common::{self, AccidentalArgs, OutputArgs};
 use super::Global;
 use std::path::PathBuf;
 use tagsieve::analysis::bell3::Convention;
-use tagsieve::analysis::chsh::{model_visibility, ChshReport};
+use tagsieve::analysis::chsh::model_visibility;
+use tagsieve::jobs::chsh::{self, ChshJob, ChshOutcome};
+use tagsieve::jobs::count::Sourced;
+use tagsieve::jobs::inputs::DelaySources;
+use tagsieve::output::layout_analysis;
 use tagsieve::output::plot::ModelLine;
-use tagsieve::analysis::visibility::{fit_visibility, AnglePoint, VisibilityFit};
-use tagsieve::engine::{tables::BlockTables, CountConfig, Delays};
-use tagsieve::manifest::Manifest;
-use tagsieve::output::{layout_analysis, provenance::Provenance, AttrValue, Group};
-use tagsieve::{pipeline, Error, Result};
+use tagsieve::{Error, Result};
 
 /// Cautions: the p-value assumes independent, identically distributed trials and fair
 /// sampling; the result is not a loophole-free Bell test and not a key-security certificate.
@@ -54,36 +54,26 @@ pub struct Args {
     pub out: OutputArgs,
 }
 
-/// Everything the command computes.
-pub struct ChshOutcome {
-    pub blocks: Vec<BlockTables>,
-    pub chsh: Option<ChshReport>,
-    pub visibility: Vec<(VisibilityFit, Vec<AnglePoint>)>,
-    pub bell3: Option<([f64; 3], tagsieve::analysis::bell3::Bell3Result)>,
-    pub window_ps: u64,
-}
-
 pub fn run(args: Args, g: &Global) -> Result<()> {
     args.out.precheck()?;
-    let m = Manifest::load(&args.manifest)?;
-    check_chsh_blocks(&m, &args.manifest)?;
-    let mut overrides = match &args.delays {
-        Some(p) => Delays::load(p)?,
-        None => Delays::default(),
-    };
-    overrides.apply_flags(&args.delay)?;
-    let delays = pipeline::manifest_delays(&m, &overrides)?;
-    let window_ps = args.window_ps.or(m.window_ps).ok_or_else(|| {
-        Error::Usage(format!("{}: no window: give --window-ps or set window_ps in the manifest (pick one with `tagsieve sweep`)", args.manifest.display()))
-    })?;
-    let cfg = CountConfig { pairs: vec![], delays, window_ps, offsets_ps: args.acc.offsets_ps(window_ps), slice_ps: args.acc.slice_ps()? };
-    let conv = match args.bell3_convention.as_str() {
+    let convention = match args.bell3_convention.as_str() {
         "correlated" => Convention::Correlated,
         "anti-correlated" => Convention::AntiCorrelated,
         o => return Err(Error::Usage(format!("--bell3-convention {o}: expected correlated or anti-correlated"))),
     };
-    let (blocks, files) = pipeline::count_run(&m, &cfg, args.read.read_options(), pipeline::PassMode::parse(&args.pass)?, g.quiet)?;
-    let outcome = analyse(&m, blocks, window_ps, conv)?;
+    let job = ChshJob {
+        ctx: super::context(g),
+        manifest: args.manifest.clone(),
+        window_ps: args.window_ps.map(|value| Sourced { value, from: "--window-ps".into() }),
+        delays: DelaySources { file: args.delays.clone(), flags: args.delay.clone() },
+        offpeak: args.acc.offpeak(),
+        slice_ps: args.acc.slice_ps()?,
+        read: args.read.read_options(),
+        pass: common::pass_mode(&args.pass)?,
+        convention,
+        document: super::wants_document(&args.out, g),
+    };
+    let outcome = chsh::run(&job)?;
     if let Some(p) = &args.plot {
         match &outcome.chsh {
             Some(r) => {
@@ -99,74 +89,11 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
             tagsieve::output::plot::plot_visibility(fit, pts, &path, true)?;
         }
     }
-    if super::wants_tables(&args.out, g) {
-        let mut prov = Provenance::new(common::command_line())
-            .param("command", AttrValue::Str("chsh".into()))
-            .param("manifest", AttrValue::Str(args.manifest.display().to_string()))
-            .param("window_ps", AttrValue::U64(window_ps))
-            .param_json("delays_ps", &cfg.delays.by_channel)
-            .param_json("acc_offsets_ps", &cfg.offsets_ps)
-            .param("slice_s", AttrValue::F64(args.acc.slice_s))
-            .param("bell3_convention", AttrValue::Str(args.bell3_convention.clone()));
-        prov = prov.input(&args.manifest)?;
-        for f in &files {
-            prov = prov.input(f)?;
-        }
-        super::write_tables(&outcome.blocks, prov, analysis_groups(&outcome), &args.out, g)?;
-    }
+    super::emit_document(outcome.document.as_ref(), &args.out, g)?;
     if !args.out.to_stdout() {
         print(&outcome, g);
     }
     Ok(())
-}
-
-/// Two Alice and two Bob settings declare a CHSH set: each of the four setting pairs needs
-/// a block, else nothing could be computed. The line given is the end of the file, where
-/// the missing [[block]] table would go.
-fn check_chsh_blocks(m: &Manifest, path: &std::path::Path) -> Result<()> {
-    if m.settings.alice.len() != 2 || m.settings.bob.len() != 2 {
-        return Ok(());
-    }
-    for a in m.settings.alice.keys() {
-        for b in m.settings.bob.keys() {
-            if !m.blocks.iter().any(|k| &k.alice == a && &k.bob == b) {
-                let line = std::fs::read_to_string(path).map_or(1, |t| t.lines().count().max(1));
-                let message = format!(
-                    "missing block: the settings form a CHSH set, but no [[block]] has alice = {a:?} and bob = {b:?}; \
-                     CHSH needs a block for each of the four setting pairs"
-                );
-                return Err(Error::Config { path: path.to_path_buf(), line, message });
-            }
-        }
-    }
-    Ok(())
-}
-
-/// CHSH, visibility and three-setting results from counted blocks.
-pub fn analyse(m: &Manifest, blocks: Vec<BlockTables>, window_ps: u64, conv: Convention) -> Result<ChshOutcome> {
-    let settings = pipeline::setting_counts(m, &blocks)?;
-    let chsh = pipeline::chsh_report(&settings).transpose()?;
-    let visibility = pipeline::visibility_series(m, &blocks)?
-        .into_iter()
-        .map(|(basis, pts)| fit_visibility(&basis, &pts).map(|f| (f, pts)))
-        .collect::<Result<Vec<_>>>()?;
-    let bell3 = pipeline::bell3_search(&settings, conv);
-    Ok(ChshOutcome { blocks, chsh, visibility, bell3, window_ps })
-}
-
-/// The `/chsh`, `/visibility` and `/bell3` groups that exist for this run.
-pub fn analysis_groups(o: &ChshOutcome) -> Vec<Group> {
-    let mut v = Vec::new();
-    if let Some(r) = &o.chsh {
-        v.push(layout_analysis::chsh_group(r));
-    }
-    if !o.visibility.is_empty() {
-        v.push(layout_analysis::visibility_group(&o.visibility));
-    }
-    if let Some((angles, r)) = &o.bell3 {
-        v.push(layout_analysis::bell3_group(r, *angles));
-    }
-    v
 }
 
 fn suffixed(p: &std::path::Path, tag: &str) -> PathBuf {

@@ -1,11 +1,10 @@
-//! `tagsieve clock-fit`: fit the map from the second recorder's time to the first's from the
-//! tags alone; print a summary and write the clock file (docs/clocks.md). No peak: exit 2.
+//! `tagsieve clock-fit`: arguments → a clock-fit job ([`tagsieve::jobs::clock_fit`]); its
+//! map → the clock file (docs/clocks.md) and a summary on stdout. No peak: exit 2.
 
 use super::Global;
 use std::path::PathBuf;
-use tagsieve::analysis::clock_fit::FitConfig;
-use tagsieve::pipeline::fit_sources;
-use tagsieve::engine::Delays;
+use tagsieve::jobs::clock_fit::{self, ClockFitJob, ClockFitOutcome};
+use tagsieve::jobs::inputs::DelaySources;
 use tagsieve::Result;
 
 #[derive(clap::Args, Debug)]
@@ -44,21 +43,16 @@ pub struct Args {
 
 pub fn run(args: Args, g: &Global) -> Result<()> {
     super::common::precheck_output(&args.output, args.force)?;
-    let in_range = |v: f64, lo: f64, hi: f64| v.is_finite() && v >= lo && v <= hi;
-    if !in_range(args.offset_range_s, 1e-9, 100.0) || !in_range(args.ppm_range, 0.0, 1e4) {
-        return Err(tagsieve::Error::Usage(format!(
-            "clock-fit: --offset-range-s {} and --ppm-range {}: expected (0, 100] s and [0, 10⁴] ppm",
-            args.offset_range_s, args.ppm_range
-        )));
-    }
-    let mut delays = match &args.delays {
-        Some(p) => Delays::load(p)?,
-        None => Delays::default(),
+    let job = ClockFitJob {
+        inputs: args.inputs.clone(),
+        layout: args.layout.clone(),
+        read: args.read.read_options(),
+        second_site: args.second_site.clone(),
+        delays: DelaySources { file: args.delays.clone(), flags: args.delay.clone() },
+        offset_range_s: args.offset_range_s,
+        ppm_range: args.ppm_range,
     };
-    delays.apply_flags(&args.delay)?;
-    let cfg = FitConfig { offset_range_ps: (args.offset_range_s * 1e12) as u64, ppm_range: args.ppm_range, ..FitConfig::default() };
-    let sources = tagsieve::pipeline::open_block(&args.inputs, args.layout.as_deref(), args.read.read_options())?;
-    let (map, coarse) = fit_sources(&sources, &args.second_site, &delays, &cfg)?;
+    let ClockFitOutcome { map, coarse } = clock_fit::run(&job)?;
     map.save(&args.output, args.force)?;
     if g.json {
         super::common::print_json(&serde_json::json!({ "coarse": coarse, "knots": map.knots.len(), "lost": map.lost, "steps": map.steps, "residual_rms_ps": map.residual_rms_ps, "clock_file": args.output }));

@@ -2,7 +2,10 @@
 //! library (opening inputs, delays, output destinations, printing).
 
 use std::path::{Path, PathBuf};
-use tagsieve::engine::{accidentals, count::DEFAULT_SLICE_PS, Delays};
+use tagsieve::engine::count::DEFAULT_SLICE_PS;
+use tagsieve::jobs::count::OffPeakChoice;
+use tagsieve::jobs::inputs::{BlockInputs, DelaySources};
+use tagsieve::jobs::pass::PassMode;
 use tagsieve::{Channel, Error, Result};
 
 /// Input files of one block.
@@ -29,12 +32,19 @@ pub struct InputArgs {
 }
 
 impl InputArgs {
-    pub fn mode(&self) -> Result<tagsieve::pipeline::PassMode> {
-        if self.clock.is_some() && self.pass == "auto" {
-            return Ok(tagsieve::pipeline::PassMode::Whole); // a clock map needs a whole pass
-        }
-        tagsieve::pipeline::PassMode::parse(&self.pass)
+    /// The inputs as a job takes them.
+    pub fn block_inputs(&self) -> BlockInputs {
+        BlockInputs { inputs: self.inputs.clone(), layout: self.layout.clone(), read: self.read.read_options(), clock: self.clock.clone() }
     }
+    /// `--pass` as a mode (a clock map turns `auto` into `whole`: [`BlockInputs::mode`]).
+    pub fn pass(&self) -> Result<PassMode> {
+        pass_mode(&self.pass)
+    }
+}
+
+/// A `--pass` value.
+pub fn pass_mode(s: &str) -> Result<PassMode> {
+    PassMode::from_name(s).ok_or_else(|| Error::Usage(format!("--pass {s}: expected auto, whole or stream")))
 }
 
 /// Channel pairs and delays.
@@ -55,13 +65,9 @@ impl PairArgs {
     pub fn pairs(&self) -> Result<Vec<(Channel, Channel)>> {
         parse_pairs(&self.pairs)
     }
-    pub fn delays(&self) -> Result<Delays> {
-        let mut d = match &self.delays {
-            Some(p) => Delays::load(p)?,
-            None => Delays::default(),
-        };
-        d.apply_flags(&self.delay)?;
-        Ok(d)
+    /// The delays file and `--delay` flags, resolved by the job ([`DelaySources::resolve`]).
+    pub fn delays(&self) -> DelaySources {
+        DelaySources { file: self.delays.clone(), flags: self.delay.clone() }
     }
 }
 
@@ -103,26 +109,14 @@ pub struct AccidentalArgs {
 }
 
 impl AccidentalArgs {
-    /// The offsets given, or the defaults for windows up to `window_ps`.
-    pub fn offsets_ps(&self, window_ps: u64) -> Vec<i64> {
+    /// Where the off-peak windows sit: the offsets given, none, or the defaults.
+    pub fn offpeak(&self) -> OffPeakChoice {
         if self.no_offpeak {
-            vec![]
+            OffPeakChoice::None
         } else if self.acc_offsets_ps.is_empty() {
-            accidentals::default_offsets_ps(window_ps)
+            OffPeakChoice::Default
         } else {
-            self.acc_offsets_ps.clone()
-        }
-    }
-    /// Off-peak windows of a sweep: the offsets given on every row, or each window's own
-    /// defaults.
-    pub fn sweep_offpeak(&self) -> tagsieve::engine::sweep::OffPeak {
-        use tagsieve::engine::sweep::OffPeak;
-        if self.no_offpeak {
-            OffPeak::Fixed(vec![])
-        } else if self.acc_offsets_ps.is_empty() {
-            OffPeak::PerWindow
-        } else {
-            OffPeak::Fixed(self.acc_offsets_ps.clone())
+            OffPeakChoice::Given(self.acc_offsets_ps.clone())
         }
     }
     pub fn slice_ps(&self) -> Result<u64> {
@@ -130,6 +124,34 @@ impl AccidentalArgs {
             return Err(Error::Usage(format!("--slice-s {}: must be > 0 s", self.slice_s)));
         }
         Ok((self.slice_s * 1e12).round().max(1.0) as u64)
+    }
+}
+
+/// The table formats `--format` offers, one for each [`tagsieve::output::Format`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum FormatArg {
+    /// HDF5 file (groups, one dataset per column, `units` attributes).
+    Hdf5,
+    /// CSV sections in one file, one per table, attributes as `#` comment lines.
+    Csv,
+    /// A directory (`-o DIR`) of plain CSV files, one per table at the table's path
+    /// (`blocks/ab/coincidences.csv`): one header line of column names, no comments; units,
+    /// attributes and provenance in `attributes.json` beside them. Opens as it is in
+    /// pandas or a spreadsheet.
+    CsvDir,
+    /// One JSON object: nested groups, columns as arrays with units.
+    Json,
+}
+
+impl From<FormatArg> for tagsieve::output::Format {
+    fn from(f: FormatArg) -> Self {
+        use tagsieve::output::Format;
+        match f {
+            FormatArg::Hdf5 => Format::Hdf5,
+            FormatArg::Csv => Format::Csv,
+            FormatArg::CsvDir => Format::CsvDir,
+            FormatArg::Json => Format::Json,
+        }
     }
 }
 
@@ -141,8 +163,8 @@ pub struct OutputArgs {
     #[arg(short = 'o', long = "output", value_name = "FILE")]
     pub output: Option<PathBuf>,
     /// Table format.
-    #[arg(long, value_enum, default_value_t = tagsieve::output::Format::Hdf5)]
-    pub format: tagsieve::output::Format,
+    #[arg(long, value_enum, default_value_t = FormatArg::Hdf5)]
+    pub format: FormatArg,
     /// Replace existing output files (the tables, and a delays file written by scan).
     #[arg(long)]
     pub force: bool,

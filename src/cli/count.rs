@@ -1,11 +1,12 @@
-//! `tagsieve count`: coincidences and accidentals at one window, per block, into tables.
+//! `tagsieve count`: arguments → a count job ([`tagsieve::jobs::count`]); its outcome →
+//! the tables file and the table on stdout.
 
 use super::common::{self, AccidentalArgs, InputArgs, OutputArgs, PairArgs};
 use super::Global;
-use tagsieve::engine::{tables::BlockTables, CountConfig};
-use tagsieve::output::{provenance::Provenance, AttrValue};
+use tagsieve::engine::tables::BlockTables;
+use tagsieve::jobs::count::{self, CountJob, Sourced};
 use tagsieve::units::fmt_count;
-use tagsieve::{pipeline, read, Result};
+use tagsieve::Result;
 
 #[derive(clap::Args, Debug)]
 pub struct Args {
@@ -27,45 +28,31 @@ pub struct Args {
 
 pub fn run(args: Args, g: &Global) -> Result<()> {
     args.out.precheck()?;
-    let cfg = CountConfig {
+    let job = CountJob {
+        ctx: super::context(g),
+        label: args.label.clone(),
+        inputs: args.input.block_inputs(),
+        pass: args.input.pass()?,
         pairs: args.pairs.pairs()?,
-        delays: args.pairs.delays()?,
-        window_ps: args.window_ps,
-        offsets_ps: args.acc.offsets_ps(args.window_ps),
+        delays: args.pairs.delays(),
+        window_ps: Sourced { value: args.window_ps, from: "--window-ps".into() },
+        offpeak: args.acc.offpeak(),
         slice_ps: args.acc.slice_ps()?,
+        document: super::wants_document(&args.out, g),
     };
-    tagsieve::engine::rule::check_window(cfg.window_ps, "--window-ps")?;
-    let mode = args.input.mode()?;
-    let sources = super::open(&args.input, g)?;
-    let blocks = vec![pipeline::count_sources(&args.label, &sources, &cfg, mode, g.quiet)?];
-    if super::wants_tables(&args.out, g) {
-        let prov = provenance(&args, &cfg, &sources)?;
-        super::write_tables(&blocks, prov, vec![], &args.out, g)?;
-    }
+    let outcome = count::run(&job)?;
+    super::emit_document(outcome.document.as_ref(), &args.out, g)?;
     if !args.out.to_stdout() {
-        print_counts(&blocks, g);
+        print_counts(std::slice::from_ref(&outcome.block), g);
     }
     Ok(())
-}
-
-fn provenance(args: &Args, cfg: &CountConfig, sources: &[Box<dyn read::TagSource>]) -> Result<Provenance> {
-    let mut p = Provenance::new(common::command_line())
-        .param("command", AttrValue::Str("count".into()))
-        .param("window_ps", AttrValue::U64(cfg.window_ps))
-        .param("slice_s", AttrValue::F64(args.acc.slice_s))
-        .param_json("acc_offsets_ps", &cfg.offsets_ps)
-        .param_json("delays_ps", &cfg.delays.by_channel);
-    if let Some(l) = &args.input.layout {
-        p = p.param("layout", AttrValue::Str(l.clone()));
-    }
-    super::add_inputs(p, sources)
 }
 
 /// Coincidence tables on stdout as a human table (with `--json` the Document went out
 /// instead); counts in groups of three digits, as `inspect` prints them.
 pub fn print_counts(blocks: &[BlockTables], g: &Global) {
     if g.json {
-        return;
+        return; // the Document went out
     }
     for b in blocks {
         println!("{}: live time {}", b.label, b.span.map(|s| common::ps(s.duration_ps() as f64)).unwrap_or_else(|| "none (no events)".into()));

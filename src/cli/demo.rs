@@ -1,9 +1,10 @@
-//! `tagsieve demo`: the whole pipeline on simulated Larch–Rowan data, into one folder.
+//! `tagsieve demo`: arguments → the demo job ([`tagsieve::jobs::demo`], the same jobs a
+//! user runs, on simulated Larch–Rowan data); its summary → text or JSON on stdout.
 
 use super::common;
 use super::Global;
 use std::path::PathBuf;
-use tagsieve::demo::{run_demo, DemoConfig, DemoSummary};
+use tagsieve::jobs::demo::{run_demo, DemoConfig, DemoSummary};
 use tagsieve::Result;
 
 #[derive(clap::Args, Debug)]
@@ -31,7 +32,7 @@ pub struct Args {
 pub fn run(args: Args, g: &Global) -> Result<()> {
     let out_dir = super::deprecated(args.out.clone(), "--out", "-o/--output").unwrap_or_else(|| args.output.clone());
     let duration_s = super::deprecated(args.block_s, "--block-s", "--duration-s").unwrap_or(args.duration_s);
-    let s = run_demo(&DemoConfig { out_dir, seed: args.seed, duration_s, quiet: g.quiet || g.json })?;
+    let s = run_demo(&DemoConfig { out_dir, seed: args.seed, duration_s, quiet: g.quiet || g.json, command_line: common::command_line() })?;
     if g.json {
         common::print_json(&summary_json(&s));
         return Ok(());

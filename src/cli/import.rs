@@ -1,9 +1,9 @@
-//! `tagsieve import`: per-channel arrays or interleaved records → one .tsieve container, in
-//! one streaming pass (read::convert) with a progress bar; atomic, `--force` to replace.
+//! `tagsieve import`: arguments → an import job ([`tagsieve::jobs::import`]: per-channel
+//! arrays or interleaved records → one .tsieve container); a line on stderr when done.
 
 use super::Global;
-use tagsieve::read::layout::{RecordLayout, Tick};
-use tagsieve::read::{convert, open_inputs};
+use tagsieve::jobs::import::{self, ImportJob};
+use tagsieve::jobs::inputs::BlockInputs;
 use tagsieve::units::fmt_count;
 use tagsieve::Result;
 use std::path::PathBuf;
@@ -30,15 +30,8 @@ pub struct Args {
 }
 
 pub fn run(args: Args, g: &Global) -> Result<()> {
-    let layout = args.layout.as_deref().map(RecordLayout::from_arg).transpose()?;
-    let sources = open_inputs(&args.inputs, layout.as_ref(), args.read.read_options())?;
-    super::note_old_extensions(&sources, g);
-    // The header records the record layout's tick; per-channel arrays are 1 ps already.
-    let tick = layout.as_ref().map_or(Tick { fs: 1000 }, |l| l.tick);
-    let total: u64 = sources.iter().map(|s| s.event_count()).sum();
-    let progress = tagsieve::progress::Progress::items("import", total, g.quiet);
-    let summary = convert::import(&sources, &args.output, args.force, tick, &progress)?;
-    progress.finish();
+    let inputs = BlockInputs { inputs: args.inputs.clone(), layout: args.layout.clone(), read: args.read.read_options(), clock: None };
+    let summary = import::run(&ImportJob { ctx: super::context(g), inputs, output: args.output.clone(), force: args.force })?;
     if g.json {
         // Under the Document's conventions (docs/hdf5-layout.md): counts as plain numbers,
         // one row object per channel.

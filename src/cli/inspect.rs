@@ -1,11 +1,11 @@
-//! `tagsieve inspect`: the file checker. Parses arguments, runs the lenient one-pass check
-//! (read::check) and prints a table or JSON. Exit code 2 when any channel has
+//! `tagsieve inspect`: arguments → an inspect job ([`tagsieve::jobs::inspect`], the lenient
+//! one-pass check); its report → a table or JSON. Exit code 2 when any channel has
 //! out-of-order steps (after printing the report); duplicates alone are not a problem.
 
 use super::Global;
 use serde_json::json;
-use tagsieve::read::check::{inspect, ChannelReport, InspectReport};
-use tagsieve::read::{layout::RecordLayout, open_inputs, ReadOptions};
+use tagsieve::jobs::inputs::BlockInputs;
+use tagsieve::jobs::inspect::{self, ChannelReport, InspectJob, InspectReport};
 use tagsieve::units::{fmt_count, fmt_duration_ps, fmt_rate_hz};
 use tagsieve::{Error, Result};
 
@@ -25,14 +25,8 @@ pub struct Args {
 }
 
 pub fn run(args: Args, g: &Global) -> Result<()> {
-    let layout = args.layout.as_deref().map(RecordLayout::from_arg).transpose()?;
-    let opts = ReadOptions { lenient_order: true, ..args.read.read_options() };
-    let sources = open_inputs(&args.inputs, layout.as_ref(), opts)?;
-    super::note_old_extensions(&sources, g);
-    let total: u64 = sources.iter().map(|s| s.event_count()).sum();
-    let progress = tagsieve::progress::Progress::items("inspect", total, g.quiet);
-    let report = inspect(&sources, &progress)?;
-    progress.finish();
+    let inputs = BlockInputs { inputs: args.inputs.clone(), layout: args.layout.clone(), read: args.read.read_options(), clock: None };
+    let report = inspect::run(&InspectJob { ctx: super::context(g), inputs })?;
     if g.json {
         println!("{}", serde_json::to_string_pretty(&to_json(&report)).map_err(|e| Error::Usage(e.to_string()))?);
     } else {

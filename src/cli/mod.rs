@@ -46,7 +46,8 @@ pub struct ReadArgs {
 
 impl ReadArgs {
     pub fn read_options(&self) -> tagsieve::read::ReadOptions {
-        tagsieve::read::ReadOptions { mmap: !self.no_mmap, ..Default::default() }
+        // mapping by default, as the README documents; --no-mmap for files that may change
+        tagsieve::read::ReadOptions { mmap: !self.no_mmap, ..tagsieve::read::ReadOptions::mapped() }
     }
 }
 
@@ -94,89 +95,54 @@ fn exit_now(code: i32) -> ! {
     std::process::exit(code)
 }
 
-/// Print an error as one readable line (plus a hint line) and return its exit code.
+/// Print an error as one readable line (plus a hint line) and return its exit code. A
+/// refused setting is shown under the flag that sets it.
 pub fn report_error(e: &Error) -> i32 {
-    eprintln!("tagsieve: error: {e}");
+    match e {
+        Error::Setting { setting, value, message } => eprintln!("tagsieve: error: {} {value}: {message}", flag_of(setting)),
+        _ => eprintln!("tagsieve: error: {e}"),
+    }
     if let Some(h) = e.hint() {
         eprintln!("  hint: {h}");
     }
     e.exit_code()
 }
 
+/// The flag that sets a job setting (the names the library's [`Error::Setting`] uses).
+pub fn flag_of(setting: &str) -> String {
+    match setting {
+        "reference" => "--reference".into(),
+        "delay" => "--delay".into(),
+        other => format!("--{}", other.replace('_', "-")),
+    }
+}
+
 // ---- glue shared by the subcommands ----
 
 use std::path::{Path, PathBuf};
-use tagsieve::engine::tables::BlockTables;
-use tagsieve::output::{self, provenance::Provenance, Group};
-use tagsieve::read::TagSource;
+use tagsieve::output::{self, Document};
 use tagsieve::Result;
 
-/// Open one block's inputs.
-pub fn open(input: &common::InputArgs, g: &Global) -> Result<Vec<Box<dyn TagSource>>> {
-    let sources = tagsieve::pipeline::open_block(&input.inputs, input.layout.as_deref(), input.read.read_options())?;
-    note_old_extensions(&sources, g);
-    let Some(path) = &input.clock else { return Ok(sources) };
-    let map = std::sync::Arc::new(tagsieve::tags::clock::ClockMap::load(path)?);
-    let tally = std::sync::Arc::new(std::sync::Mutex::new(tagsieve::tags::clock::MapTally::default()));
-    let n = sources.len();
-    let (quiet, shown) = (g.quiet, path.display().to_string());
-    Ok(sources
-        .into_iter()
-        .enumerate()
-        .map(|(i, inner)| {
-            // the last source drops last: it reports the tally of the whole block
-            let shown = shown.clone();
-            let on_drop: Option<tagsieve::read::clocked::TallyReport> = (i + 1 == n && !quiet).then(|| {
-                Box::new(move |t: &tagsieve::tags::clock::MapTally| {
-                    eprintln!(
-                        "clock map {shown}: {} second-site tags mapped; not counted: {} outside the fitted span, {} in lost segments, {} before time 0",
-                        t.mapped, t.outside_span, t.in_lost_span, t.below_zero
-                    )
-                }) as tagsieve::read::clocked::TallyReport
-            });
-            Box::new(tagsieve::read::clocked::ClockedSource { inner, map: map.clone(), tally: tally.clone(), on_drop }) as Box<dyn TagSource>
-        })
-        .collect())
+/// What every job is told: --quiet and the command line for provenance.
+pub fn context(g: &Global) -> tagsieve::jobs::Context {
+    tagsieve::jobs::Context { quiet: g.quiet, command_line: common::command_line() }
 }
 
-/// A note on stderr for each container still named `.sieve` (unless --quiet).
-pub fn note_old_extensions(sources: &[Box<dyn TagSource>], g: &Global) {
-    if g.quiet {
-        return;
-    }
-    for s in sources {
-        if s.file().format == "container" {
-            if let Some(note) = tagsieve::read::container::old_extension_note(&s.file().path) {
-                eprintln!("tagsieve: note: {note}");
-            }
-        }
-    }
-}
-
-/// Record each input's path, size and checksum.
-pub fn add_inputs(mut p: Provenance, sources: &[Box<dyn TagSource>]) -> Result<Provenance> {
-    for s in sources {
-        p = p.input(&s.file().path)?;
-    }
-    Ok(p)
-}
-
-/// Whether the run's Document is wanted: a table file (`-o`) or `--json`.
-pub fn wants_tables(out: &common::OutputArgs, g: &Global) -> bool {
+/// Whether the job builds its Document: a table file (`-o`) or `--json` wants it.
+pub fn wants_document(out: &common::OutputArgs, g: &Global) -> bool {
     out.output.is_some() || g.json
 }
 
-/// The run's Document (blocks plus extra groups such as /chsh): to `-o` in the chosen
-/// format, and with `--json` the same Document as JSON on stdout (unless `-o -` took it).
-pub fn write_tables(blocks: &[BlockTables], prov: Provenance, extra: Vec<Group>, args: &common::OutputArgs, g: &Global) -> Result<()> {
-    let mut doc = output::layout::run_document(blocks, &prov);
-    doc.root.groups.extend(extra);
+/// A job's Document: to `-o` in the chosen format, and with `--json` the same Document as
+/// JSON on stdout (unless `-o -` took stdout already).
+pub fn emit_document(doc: Option<&Document>, args: &common::OutputArgs, g: &Global) -> Result<()> {
+    let Some(doc) = doc else { return Ok(()) };
     if let Some(out) = &args.output {
         let dest = if out.as_os_str() == "-" { None } else { Some(out.as_path()) };
-        output::write_document(&doc, dest, args.format, args.force)?;
+        output::write_document(doc, dest, args.format.into(), args.force)?;
     }
     if g.json && !args.to_stdout() {
-        output::json::print_document(&doc)?;
+        output::json::print_document(doc)?;
     }
     Ok(())
 }

@@ -1,11 +1,12 @@
-//! `tagsieve scan`: delay histograms per pair; with --reference, a delays file.
+//! `tagsieve scan`: arguments → a scan job ([`tagsieve::jobs::scan`]); its outcome → the
+//! tables, the delays file (with --reference), plots and the table on stdout.
 
 use super::common::{self, InputArgs, OutputArgs, PairArgs};
 use super::Global;
 use std::path::PathBuf;
-use tagsieve::engine::{self, scan, tables::BlockTables, ScanConfig};
-use tagsieve::output::{provenance::Provenance, AttrValue};
-use tagsieve::{pipeline, Channel, Error, Result};
+use tagsieve::engine::{self, tables::BlockTables};
+use tagsieve::jobs::scan::{self, ScanJob};
+use tagsieve::{Channel, Result};
 
 #[derive(clap::Args, Debug)]
 pub struct Args {
@@ -58,72 +59,40 @@ pub fn run(args: Args, g: &Global) -> Result<()> {
     if args.reference.is_some() {
         common::precheck_output(&args.delays_out, args.out.force)?;
     }
-    let cfg = ScanConfig { pairs: args.pairs.pairs()?, delays: args.pairs.delays()?, half_range_ps: args.half_range_ps(), bin_ps: args.bin_ps };
-    let mode = args.input.mode()?;
-    let sources = super::open(&args.input, g)?;
-    if let (Some(r), Some(chans)) = (args.reference, pipeline::declared_channels(&sources)) {
-        check_reference(r, &chans)?;
-    }
-    let block = pipeline::scan_sources(&args.label, &sources, &cfg, mode, g.quiet)?;
-    let proposal = match args.reference {
-        Some(r) => {
-            let chans: Vec<Channel> = block.singles.iter().map(|s| s.channel).collect();
-            check_reference(r, &chans)?;
-            let d = propose(&block, r, &chans, &cfg.delays);
-            tagsieve::output::atomic::write_bytes(&args.delays_out, d.to_toml().as_bytes(), args.out.force)?;
-            Some(d)
-        }
-        None => None,
+    let job = ScanJob {
+        ctx: super::context(g),
+        label: args.label.clone(),
+        inputs: args.input.block_inputs(),
+        pass: args.input.pass()?,
+        pairs: args.pairs.pairs()?,
+        delays: args.pairs.delays(),
+        half_range_ps: args.half_range_ps(),
+        bin_ps: args.bin_ps,
+        reference: args.reference,
+        delays_file: args.delays_out.clone(),
+        document: super::wants_document(&args.out, g),
     };
+    let outcome = scan::run(&job)?;
+    let block = &outcome.block;
+    if let Some(d) = &outcome.proposal {
+        tagsieve::output::atomic::write_bytes(&args.delays_out, d.to_toml().as_bytes(), args.out.force)?;
+    }
     if let Some(plot) = &args.plot {
         for s in &block.scans {
             let path = super::per_pair_path(plot, s.a, s.b, block.scans.len());
             tagsieve::output::plot::plot_scan(s, None, args.log, &path, true)?;
         }
     }
-    if super::wants_tables(&args.out, g) {
-        let p = Provenance::new(common::command_line())
-            .param("command", AttrValue::Str("scan".into()))
-            .param("half_range_ps", AttrValue::U64(cfg.half_range_ps))
-            .param("bin_ps", AttrValue::U64(cfg.bin_ps));
-        let p = super::add_inputs(p, &sources)?;
-        let proposed = proposal.iter().map(|d| tagsieve::output::layout::proposal_group(d, &args.delays_out)).collect();
-        super::write_tables(std::slice::from_ref(&block), p, proposed, &args.out, g)?;
-    }
+    super::emit_document(outcome.document.as_ref(), &args.out, g)?;
     if !args.out.to_stdout() {
-        print_scan(&block, proposal.as_ref(), &args, g);
-    } else if let Some(d) = &proposal {
+        print_scan(block, outcome.proposal.as_ref(), &args, g);
+    } else if let Some(d) = &outcome.proposal {
         // The tables took stdout: the channels without a delay still get said.
         for (c, why) in &d.not_found {
             eprintln!("tagsieve: no delay found for channel {c}: {why}; it is not in {}", args.delays_out.display());
         }
     }
     Ok(())
-}
-
-fn check_reference(r: Channel, channels: &[Channel]) -> Result<()> {
-    if channels.contains(&r) {
-        return Ok(());
-    }
-    let have: Vec<String> = channels.iter().map(|c| c.to_string()).collect();
-    Err(Error::Usage(format!("--reference {r}: no input provides channel {r}; expected one of {}", have.join(", "))))
-}
-
-/// The scan's proposal, plus the delays given with `--delay` for channels it did not find
-/// (moved into the proposal's frame, where the reference has delay 0).
-fn propose(block: &BlockTables, r: Channel, channels: &[Channel], given: &engine::Delays) -> engine::Delays {
-    let mut d = scan::propose_delays(&block.scans, r, channels);
-    for (c, v) in &given.by_channel {
-        if d.by_channel.contains_key(c) || given.obtained.get(c).map(String::as_str) != Some(engine::delays::FROM_FLAG) {
-            continue;
-        }
-        let shift = given.get(r);
-        d.by_channel.insert(*c, v - shift);
-        let how = if shift == 0 { "given with --delay; not found by the scan".to_string() } else { format!("given with --delay ({v} ps, less the reference's {shift} ps); not found by the scan") };
-        d.obtained.insert(*c, how);
-        d.not_found.remove(c);
-    }
-    d
 }
 
 fn print_scan(block: &BlockTables, proposal: Option<&engine::Delays>, args: &Args, g: &Global) {

@@ -4,7 +4,7 @@
 use super::Global;
 use clap::ValueEnum;
 use tagsieve::manifest::{InputFormat, Settings, Setup};
-use tagsieve::progress::Progress;
+use tagsieve::jobs::simulate::SimulateJob;
 use tagsieve::simulate::{self, chsh_labels, plan_blocks, Correlation, DetectorModel, RunConfig, SettingLabel, SourceModel};
 use tagsieve::{Error, Result};
 
@@ -112,11 +112,8 @@ pub enum FormatArg {
 }
 
 pub fn run(args: Args, g: &Global) -> Result<()> {
-    let cfg = config(&args)?;
-    let total_ms = (args.duration_s * 1e3).floor().max(0.0) as u64 * cfg.blocks.len() as u64;
-    let progress = Progress::items("simulate ms", total_ms, g.quiet);
-    let second = second_site(&args);
-    let summary = simulate::write_run_two_site(&cfg, second.as_ref(), &args.output_dir()?, args.force, &progress)?;
+    let job = SimulateJob { ctx: super::context(g), run: config(&args)?, second_site: second_site(&args), output: args.output_dir()?, force: args.force };
+    let summary = tagsieve::jobs::simulate::run(&job)?;
     if g.json {
         let text = serde_json::to_string_pretty(&summary).map_err(|e| Error::Usage(format!("simulate: JSON summary: {e}")))?;
         println!("{text}");

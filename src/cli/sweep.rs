@@ -1,12 +1,12 @@
-//! `tagsieve sweep`: coincidences, accidentals, net counts and CAR against window; a
-//! recommended window.
+//! `tagsieve sweep`: arguments → a sweep job ([`tagsieve::jobs::sweep`]); its outcome →
+//! the tables, plots and the table on stdout.
 
 use super::common::{self, AccidentalArgs, InputArgs, OutputArgs, PairArgs};
 use super::Global;
 use std::path::PathBuf;
-use tagsieve::engine::{sweep, tables::BlockTables, CountConfig, Criterion};
-use tagsieve::output::{provenance::Provenance, AttrValue};
-use tagsieve::{pipeline, Error, Result};
+use tagsieve::engine::{self, tables::BlockTables, Criterion};
+use tagsieve::jobs::sweep::{self, SweepJob};
+use tagsieve::{Error, Result};
 
 #[derive(clap::Args, Debug)]
 pub struct Args {
@@ -56,52 +56,37 @@ pub fn criterion(name: &str, fraction: f64) -> Result<Criterion> {
 
 pub fn run(args: Args, g: &Global) -> Result<()> {
     args.out.precheck()?;
-    let windows = if args.windows_ps.is_empty() {
-        sweep::window_range(args.from_ps, args.to_ps, args.step_ps)?
+    let windows_ps = if args.windows_ps.is_empty() {
+        engine::sweep::window_range(args.from_ps, args.to_ps, args.step_ps)?
     } else {
         args.windows_ps.clone()
     };
-    let crit = criterion(&args.criterion, args.fraction)?;
-    let cfg = CountConfig {
+    let job = SweepJob {
+        ctx: super::context(g),
+        label: args.label.clone(),
+        criterion: criterion(&args.criterion, args.fraction)?,
         pairs: args.pairs.pairs()?,
-        delays: args.pairs.delays()?,
-        window_ps: *windows.iter().max().unwrap_or(&1),
-        offsets_ps: vec![],
+        delays: args.pairs.delays(),
+        windows_ps,
+        offpeak: args.acc.offpeak(),
         slice_ps: args.acc.slice_ps()?,
+        inputs: args.input.block_inputs(),
+        pass: args.input.pass()?,
+        document: super::wants_document(&args.out, g),
     };
-    let mode = args.input.mode()?;
-    let sources = super::open(&args.input, g)?;
-    let offpeak = args.acc.sweep_offpeak();
-    let block = pipeline::sweep_sources(&args.label, &sources, &cfg, &windows, &offpeak, crit, mode, g.quiet)?;
+    let outcome = sweep::run(&job)?;
+    let block = &outcome.block;
     if let Some(plot) = &args.plot {
         for s in &block.sweeps {
             tagsieve::output::plot::plot_sweep(s, &super::per_pair_path(plot, s.a, s.b, block.sweeps.len()), true)?;
         }
     }
-    if super::wants_tables(&args.out, g) {
-        let mut p = Provenance::new(common::command_line())
-            .param("command", AttrValue::Str("sweep".into()))
-            .param_json("windows_ps", &windows)
-            .param("criterion", AttrValue::Str(args.criterion.clone()))
-            .param("slice_s", AttrValue::F64(args.acc.slice_s));
-        if let Criterion::PeakFraction(f) = crit {
-            p = p.param("fraction", AttrValue::F64(f));
-        }
-        p = match &offpeak {
-            sweep::OffPeak::Fixed(v) => p.param_json("acc_offsets_ps", v),
-            sweep::OffPeak::PerWindow => p.param("acc_offsets_ps", AttrValue::Str(PER_WINDOW_RULE.into())),
-        };
-        let p = super::add_inputs(p, &sources)?;
-        super::write_tables(std::slice::from_ref(&block), p, vec![], &args.out, g)?;
-    }
+    super::emit_document(outcome.document.as_ref(), &args.out, g)?;
     if !args.out.to_stdout() {
-        print_sweep(&block, g);
+        print_sweep(block, g);
     }
     Ok(())
 }
-
-/// The off-peak offsets of a sweep that places each window's own, as a provenance value.
-const PER_WINDOW_RULE: &str = "per window w: ±(max(2000000, 2W) + k·W), k = 0…4, W = 2⌊w/2⌋+1";
 
 fn print_sweep(block: &BlockTables, g: &Global) {
     if g.json {

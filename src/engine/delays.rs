@@ -60,10 +60,11 @@ impl Delays {
         for f in flags {
             let (ch, ps) = f
                 .split_once('=')
-                .ok_or_else(|| Error::Usage(format!("--delay {f}: expected CH=PS, e.g. 3=41250")))?;
-            let ch: Channel = ch.trim().parse().map_err(|_| Error::Usage(format!("--delay {f}: channel '{ch}' is not a channel number")))?;
-            let ps: i64 = ps.trim().parse().map_err(|_| Error::Usage(format!("--delay {f}: '{ps}' is not a whole number of ps")))?;
-            super::rule::check_shift(ps, &format!("--delay {f}"))?;
+                .ok_or_else(|| Error::setting("delay", f, "expected CH=PS, e.g. 3=41250"))?;
+            let ch: Channel = ch.trim().parse().map_err(|_| Error::setting("delay", f, format!("channel '{ch}' is not a channel number")))?;
+            let ps: i64 = ps.trim().parse().map_err(|_| Error::setting("delay", f, format!("'{ps}' is not a whole number of ps")))?;
+            super::rule::check_shift(ps, &format!("delay {f}"))
+                .map_err(|_| Error::setting("delay", f, format!("|{ps}| ps exceeds the limit of {} ps", super::rule::MAX_SPAN_PS)))?;
             self.by_channel.insert(ch, ps);
             self.obtained.insert(ch, FROM_FLAG.into());
             self.not_found.remove(&ch);
@@ -121,11 +122,11 @@ impl Delays {
         for (c, how) in &self.obtained {
             if how == FROM_FLAG && !present.contains(c) {
                 let have: Vec<String> = present.iter().map(|c| c.to_string()).collect();
-                return Err(Error::Usage(format!(
-                    "--delay {c}={}: no input provides channel {c}; expected one of {}",
-                    self.get(*c),
-                    have.join(", ")
-                )));
+                return Err(Error::setting(
+                    "delay",
+                    format!("{c}={}", self.get(*c)),
+                    format!("no input provides channel {c}; expected one of {}", have.join(", ")),
+                ));
             }
         }
         Ok(())

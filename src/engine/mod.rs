@@ -5,6 +5,7 @@
 pub mod accidentals;
 pub mod count;
 pub mod delays;
+pub mod driver;
 pub mod kernels;
 pub mod lanes;
 pub mod parallel;

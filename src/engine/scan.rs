@@ -1,10 +1,11 @@
 //! Delay scan: the histogram of Δ per pair, its peak (delay estimate with σ, FWHM, height,
 //! background), and delays proposed for every channel relative to a reference.
 
-use super::count::{finish_stream, resolve_pairs, PairOutcome};
+use super::count::PairOutcome;
 use super::delays::Delays;
+use super::driver::{self, BlockPass};
 use super::rule;
-use super::stream::{ChannelSummary, PairResult, PairTask, Streamer};
+use super::stream::{ChannelSummary, PairResult, PairTask};
 use super::tables::{BlockSpan, PeakFit, ScanResult};
 use crate::{Channel, ChannelTags, Error, Result};
 
@@ -23,9 +24,7 @@ pub const FWHM_PER_SIGMA: f64 = 2.354_820_045_030_949;
 
 /// Scan every pair of a block (whole-file path).
 pub fn scan_block(tags: &[ChannelTags<'_>], cfg: &ScanConfig) -> Result<Vec<ScanResult>> {
-    let task = check_scan(cfg)?;
-    let pairs = resolve_pairs(tags, &cfg.pairs)?;
-    Ok(super::count::run_pairs(tags, &pairs, &cfg.delays, &task)?.iter().map(|r| scan_result(r, cfg)).collect())
+    Ok(driver::whole("scan", tags, cfg)?.tables)
 }
 
 /// Scan from chunks in time order (bounded memory); equal to [`scan_block`].
@@ -33,22 +32,43 @@ pub fn scan_stream<'a, I>(chunks: I, cfg: &ScanConfig) -> Result<(BlockSpan, Vec
 where
     I: Iterator<Item = Result<Vec<ChannelTags<'a>>>>,
 {
-    let mut s = Streamer::new(check_scan(cfg)?, cfg.pairs.clone(), cfg.delays.clone(), u64::MAX);
-    for chunk in chunks {
-        s.push(&chunk?)?;
+    let out = driver::streamed("scan", chunks, cfg)?;
+    Ok((out.span.expect("a stream has events"), out.channels, out.tables))
+}
+
+/// A scan is one delay histogram per pair; an empty block gives empty histograms.
+impl BlockPass for ScanConfig {
+    type Tables = Vec<ScanResult>;
+    fn task(&self) -> Result<PairTask> {
+        check_scan(self)
     }
-    let (span, channels, results) = finish_stream(s, "scan", &cfg.pairs)?;
-    Ok((span, channels, results.iter().map(|r| scan_result(r, cfg)).collect()))
+    fn pairs(&self) -> &[(Channel, Channel)] {
+        &self.pairs
+    }
+    fn delays(&self) -> &Delays {
+        &self.delays
+    }
+    fn slice_ps(&self) -> Option<u64> {
+        None
+    }
+    fn needs_events(&self) -> bool {
+        false
+    }
+    fn assemble(&self, _: Option<BlockSpan>, _: &[ChannelSummary], results: &[PairOutcome]) -> Vec<ScanResult> {
+        results.iter().map(|r| scan_result(r, self)).collect()
+    }
 }
 
 fn check_scan(cfg: &ScanConfig) -> Result<PairTask> {
     if cfg.half_range_ps == 0 || cfg.bin_ps == 0 {
         return Err(Error::Usage(format!("scan: half-range {} ps and bin {} ps must both be > 0", cfg.half_range_ps, cfg.bin_ps)));
     }
-    rule::check_shift(cfg.half_range_ps as i64, "--half-range-ps")?;
+    if cfg.half_range_ps > rule::MAX_SPAN_PS {
+        return Err(Error::setting("half_range_ps", cfg.half_range_ps, format!("exceeds the limit of {} ps", rule::MAX_SPAN_PS)));
+    }
     let nbins = (2 * cfg.half_range_ps).div_ceil(cfg.bin_ps);
     if nbins > 50_000_000 {
-        return Err(Error::Usage(format!("scan: {nbins} bins is too many; widen --bin-ps or narrow --half-range-ps")));
+        return Err(Error::setting("bin_ps", cfg.bin_ps, format!("{nbins} bins is too many; expected at most 50000000 (widen the bins or narrow the half-range)")));
     }
     Ok(PairTask::Histogram { half_range_ps: cfg.half_range_ps, bin_ps: cfg.bin_ps })
 }

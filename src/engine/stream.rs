@@ -237,7 +237,7 @@ impl Streamer {
         let s = self.channels.entry(t.channel).or_insert_with(|| ChannelSummary { channel: t.channel, name: t.name.clone(), ..Default::default() });
         if let (Some(last), Some(&first)) = (s.last_ps, t.times_ps.first()) {
             if first < last {
-                // The pipeline has the reader locate it (file, record, byte offset).
+                // The block pass (`jobs::pass`) has the reader locate it (file, record, byte offset).
                 return Err(Error::Unordered { channel: t.channel });
             }
         }
@@ -326,7 +326,7 @@ mod tests {
     use super::*;
 
     /// A chunk that starts before the previous chunk's last event is an
-    /// [`Error::Unordered`] naming the channel, which the pipeline has the reader locate
+    /// [`Error::Unordered`] naming the channel, which the block pass (`jobs::pass`) has the reader locate
     /// (`read::locate_disorder_streamed`); it is never a usage error without a file.
     #[test]
     fn a_descent_between_chunks_is_unordered() {

@@ -1,15 +1,14 @@
 //! Window sweep: for each window, coincidences, accidentals, net counts, CAR, from one
 //! profile pass per window position, and a recommended window by a documented criterion.
 
-use super::count::{
-    block_span, check_offsets, coincidence_row, finish_stream, pair_products, resolve_pairs, summaries, CountConfig,
-    PairOutcome,
-};
+use super::count::{check_offsets, coincidence_row, pair_products, CountConfig, PairOutcome};
+use super::delays::Delays;
+use super::driver::{self, BlockPass};
 use super::kernels::WindowCount;
 use super::{accidentals, rule};
-use super::stream::{ChannelSummary, PairResult, PairTask, Streamer};
+use super::stream::{ChannelSummary, PairResult, PairTask};
 use super::tables::{BlockSpan, SweepTable};
-use crate::{ChannelTags, Error, Result};
+use crate::{Channel, ChannelTags, Error, Result};
 
 /// How the recommended window is chosen.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -76,12 +75,8 @@ pub fn sweep_block(
     offpeak: &OffPeak,
     criterion: Criterion,
 ) -> Result<Vec<SweepTable>> {
-    let windows = check_windows(windows_ps, offpeak)?;
-    let span = block_span(tags).ok_or_else(|| Error::Usage("sweep: every channel is empty".into()))?;
-    let pairs = resolve_pairs(tags, &base.pairs)?;
-    let results = super::count::run_pairs(tags, &pairs, &base.delays, &sweep_task(&windows, offpeak))?;
-    let channels = summaries(tags, span, base.slice_ps);
-    Ok(results.iter().map(|r| sweep_table(r, &channels, span, base, &windows, offpeak, criterion)).collect())
+    let pass = SweepPass { base, windows_ps: windows_ps.to_vec(), offpeak, criterion };
+    Ok(driver::whole("sweep", tags, &pass)?.tables)
 }
 
 /// Sweep from chunks in time order (bounded memory); equal to [`sweep_block`].
@@ -95,14 +90,40 @@ pub fn sweep_stream<'a, I>(
 where
     I: Iterator<Item = Result<Vec<ChannelTags<'a>>>>,
 {
-    let windows = check_windows(windows_ps, offpeak)?;
-    let mut s = Streamer::new(sweep_task(&windows, offpeak), base.pairs.clone(), base.delays.clone(), base.slice_ps);
-    for chunk in chunks {
-        s.push(&chunk?)?;
+    let pass = SweepPass { base, windows_ps: windows_ps.to_vec(), offpeak, criterion };
+    let out = driver::streamed("sweep", chunks, &pass)?;
+    Ok((out.span.expect("a stream has events"), out.channels, out.tables))
+}
+
+/// A sweep's settings as one pass: the pairs, delays and slice of `base`, the windows
+/// (sorted and deduplicated when checked), where their off-peak windows sit and the criterion.
+#[derive(Debug, Clone)]
+pub struct SweepPass<'a> {
+    pub base: &'a CountConfig,
+    pub windows_ps: Vec<u64>,
+    pub offpeak: &'a OffPeak,
+    pub criterion: Criterion,
+}
+
+impl BlockPass for SweepPass<'_> {
+    type Tables = Vec<SweepTable>;
+    fn task(&self) -> Result<PairTask> {
+        Ok(sweep_task(&check_windows(&self.windows_ps, self.offpeak)?, self.offpeak))
     }
-    let (span, channels, results) = finish_stream(s, "sweep", &base.pairs)?;
-    let tables = results.iter().map(|r| sweep_table(r, &channels, span, base, &windows, offpeak, criterion)).collect();
-    Ok((span, channels, tables))
+    fn pairs(&self) -> &[(Channel, Channel)] {
+        &self.base.pairs
+    }
+    fn delays(&self) -> &Delays {
+        &self.base.delays
+    }
+    fn slice_ps(&self) -> Option<u64> {
+        Some(self.base.slice_ps)
+    }
+    fn assemble(&self, span: Option<BlockSpan>, channels: &[ChannelSummary], results: &[PairOutcome]) -> Vec<SweepTable> {
+        let span = span.expect("a sweep needs events");
+        let windows = check_windows(&self.windows_ps, self.offpeak).expect("checked by task()");
+        results.iter().map(|r| sweep_table(r, channels, span, self.base, &windows, self.offpeak, self.criterion)).collect()
+    }
 }
 
 fn check_windows(windows_ps: &[u64], offpeak: &OffPeak) -> Result<Vec<u64>> {

@@ -18,9 +18,6 @@ impl Writer for CsvWriter {
         write_to(doc, &mut out).and_then(|()| out.flush().map_err(|e| Error::io(dest, e))).map_err(|e| super::name_sink(e, dest))
     }
 
-    fn can_stdout(&self) -> bool {
-        true
-    }
 }
 
 /// Write `doc` as CSV to any byte sink (a file, stdout, a Vec).

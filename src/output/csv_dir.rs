@@ -29,9 +29,6 @@ impl super::Writer for CsvDirWriter {
         write_tree(doc, dest)
     }
 
-    fn can_stdout(&self) -> bool {
-        false
-    }
 }
 
 /// Write `doc` as a table directory at `dest` (atomically; see [`AtomicDir`]).

@@ -38,9 +38,6 @@ impl Writer for Hdf5Writer {
         file.close().map_err(ctx.err("close"))
     }
 
-    fn can_stdout(&self) -> bool {
-        false
-    }
 }
 
 /// Error context: the file being written or read.

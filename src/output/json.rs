@@ -22,9 +22,6 @@ impl Writer for JsonWriter {
         out.flush().map_err(|e| Error::io(dest, e))
     }
 
-    fn can_stdout(&self) -> bool {
-        true
-    }
 }
 
 /// `--json`: the Document on stdout, byte for byte what `--format json` writes to a file.

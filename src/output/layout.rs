@@ -5,6 +5,7 @@
 use super::provenance::Provenance;
 use super::{AttrValue, ColumnData, Document, Group, Table};
 use crate::engine::tables::{BlockSpan, BlockTables, CoincidenceRow, Estimate, PeakFit, ScanResult, SinglesRow, SweepTable};
+use crate::units::ps_to_s;
 use crate::Channel;
 
 /// Bumped whenever a path, dtype or unit below changes. 2: tables with no rows and empty
@@ -117,10 +118,6 @@ fn block_attrs(b: &BlockTables) -> Vec<(String, AttrValue)> {
         a.push(("span_s".into(), AttrValue::F64(ps_to_s(end_ps - start_ps))));
     }
     a
-}
-
-fn ps_to_s(ps: u64) -> f64 {
-    ps as f64 * 1e-12
 }
 
 fn u64s<T>(rows: &[T], f: impl Fn(&T) -> u64) -> ColumnData {

@@ -89,6 +89,14 @@ pub enum AttrValue {
     F64(f64),
 }
 
+impl AttrValue {
+    /// A list or map as JSON text: a string attribute that `json.loads` reads back (map keys
+    /// become strings: `{"1":0,"2":850}`), never Rust debug text.
+    pub fn json_text(value: &impl serde::Serialize) -> AttrValue {
+        AttrValue::Str(serde_json::to_string(value).unwrap_or_else(|e| format!("unserialisable: {e}")))
+    }
+}
+
 /// A group: attributes, tables and subgroups.
 #[derive(Debug, Clone, PartialEq, Default)]
 pub struct Group {
@@ -156,12 +164,10 @@ pub struct Document {
 /// chosen by [`atomic`]); they never rename or clean up.
 pub trait Writer {
     fn write(&self, doc: &Document, dest: &Path) -> Result<()>;
-    /// Whether the format can stream to stdout (`-o -`).
-    fn can_stdout(&self) -> bool;
 }
 
-/// An output format, chosen with `--format`.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+/// An output format (the command line's `--format`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Format {
     /// HDF5 file (groups, one dataset per column, `units` attributes).
     Hdf5,
@@ -184,6 +190,17 @@ impl Format {
             Format::Csv => Box::new(csv::CsvWriter),
             Format::CsvDir => Box::new(csv_dir::CsvDirWriter),
             Format::Json => Box::new(json::JsonWriter),
+        }
+    }
+
+    /// The format of a name as the user types it (`hdf5`, `csv`, `csv-dir`, `json`; any case).
+    pub fn from_name(name: &str) -> Option<Format> {
+        match name.to_ascii_lowercase().as_str() {
+            "hdf5" => Some(Format::Hdf5),
+            "csv" => Some(Format::Csv),
+            "csv-dir" => Some(Format::CsvDir),
+            "json" => Some(Format::Json),
+            _ => None,
         }
     }
 

@@ -50,8 +50,7 @@ impl Provenance {
     /// Record a list or map parameter as JSON text (a string attribute that `json.loads`
     /// reads back; map keys become strings: `{"1":0,"2":850}`), never Rust debug text.
     pub fn param_json(self, key: impl Into<String>, value: &impl serde::Serialize) -> Self {
-        let text = serde_json::to_string(value).unwrap_or_else(|e| format!("unserialisable: {e}"));
-        self.param(key, AttrValue::Str(text))
+        self.param(key, AttrValue::json_text(value))
     }
 
     /// Record an input: reads the whole file once for its checksum.

@@ -55,7 +55,7 @@ impl ChannelArray {
 
 impl TagSource for ChannelArray {
     fn file(&self) -> InputFile {
-        InputFile { path: self.map.path().to_path_buf(), size_bytes: self.map.size_bytes(), format: "arrays" }
+        InputFile { path: self.map.path().to_path_buf(), size_bytes: self.map.size_bytes(), format: super::InputKind::Arrays }
     }
     fn channels(&self) -> Result<Vec<ChannelTags<'_>>> {
         sections::channels(&self.map, std::slice::from_ref(&self.section), self.lenient)

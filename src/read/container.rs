@@ -186,7 +186,7 @@ fn check_sections(map: &Mapping, sections: &[Section], table_end: u64) -> Result
 
 impl TagSource for Container {
     fn file(&self) -> InputFile {
-        InputFile { path: self.map.path().to_path_buf(), size_bytes: self.map.size_bytes(), format: "container" }
+        InputFile { path: self.map.path().to_path_buf(), size_bytes: self.map.size_bytes(), format: super::InputKind::Container }
     }
     fn channels(&self) -> Result<Vec<ChannelTags<'_>>> {
         sections::channels(&self.map, &self.sections, self.lenient)
@@ -330,7 +330,7 @@ mod tests {
         let p = d.path().join("x.sieve");
         let chans = [ChannelTags::owned(2, "larch_minus", vec![5, 9]), ChannelTags::owned(7, "", vec![])];
         write_container(&p, &chans, 12.345, "unit test").unwrap();
-        let c = Container::open(&p, ReadOptions::default()).unwrap();
+        let c = Container::open(&p, ReadOptions::mapped()).unwrap();
         assert_eq!(c.info().tick.fs, 12_345);
         assert_eq!(c.info().creator, "unit test");
         let got = c.channels().unwrap();

@@ -252,7 +252,7 @@ mod tests {
     #[test]
     fn directory_is_refused_with_exit_code_2() {
         let d = tempfile::tempdir().unwrap();
-        let e = Mapping::open(d.path(), ReadOptions::default()).unwrap_err();
+        let e = Mapping::open(d.path(), ReadOptions::mapped()).unwrap_err();
         assert!(e.to_string().contains("is a directory"), "{e}");
         assert_eq!(e.exit_code(), 2);
     }

@@ -8,10 +8,8 @@
 //! [`open_inputs`].
 
 pub mod channel_array;
-pub mod check;
 pub mod clocked;
 pub mod container;
-pub mod convert;
 pub mod layout;
 pub mod mapping;
 pub mod records;
@@ -25,10 +23,15 @@ use std::path::{Path, PathBuf};
 /// this alias stays while record readers name it so).
 pub use crate::tags::MAX_TIME_PS as MAX_PS;
 
-/// How inputs are read.
+/// How inputs are read. Mapping is the caller's explicit choice: the default reads with
+/// buffered I/O; [`ReadOptions::mapped`] (what the command line uses unless `--no-mmap`)
+/// maps files into memory.
 #[derive(Debug, Clone, Copy)]
 pub struct ReadOptions {
-    /// Map files into memory (default). `false` reads them with buffered I/O instead.
+    /// Map files into memory. A mapped file must not be truncated or rewritten while it is
+    /// read: the pages would then fault (a SIGBUS, turned into an error and exit 1 by
+    /// `sys::guard` where the handler is installed) or hold the new bytes. `false` (the
+    /// default) reads with buffered I/O, which has no such requirement.
     pub mmap: bool,
     /// Lenient order check (for `inspect`): timestamps going backwards are handed on as
     /// they are instead of failing, so the caller can count them. Default `false` (strict).
@@ -36,7 +39,17 @@ pub struct ReadOptions {
 }
 
 impl Default for ReadOptions {
+    /// Buffered reads, strict order check.
     fn default() -> Self {
+        ReadOptions { mmap: false, lenient_order: false }
+    }
+}
+
+impl ReadOptions {
+    /// Map the files (zero copy). The caller promises that no input is truncated or
+    /// rewritten while it is read (see [`ReadOptions::mmap`]); files that may change are
+    /// read with [`ReadOptions::default`] instead.
+    pub fn mapped() -> Self {
         ReadOptions { mmap: true, lenient_order: false }
     }
 }
@@ -46,8 +59,37 @@ impl Default for ReadOptions {
 pub struct InputFile {
     pub path: PathBuf,
     pub size_bytes: u64,
-    /// "arrays", "records" or "container": the names the manifest's `format` key and `simulate --format` use.
-    pub format: &'static str,
+    /// Which of the three formats the file holds.
+    pub format: InputKind,
+}
+
+/// The kind of an input file. Its [`InputKind::name`] (and its serialized form) is the
+/// name the manifest's `format` key and `simulate --format` use.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum InputKind {
+    /// One little-endian u64 array of ps per channel.
+    Arrays,
+    /// Interleaved records described by a layout.
+    Records,
+    /// A container file of all channels.
+    Container,
+}
+
+impl InputKind {
+    pub fn name(self) -> &'static str {
+        match self {
+            InputKind::Arrays => "arrays",
+            InputKind::Records => "records",
+            InputKind::Container => "container",
+        }
+    }
+}
+
+impl std::fmt::Display for InputKind {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.name())
+    }
 }
 
 /// One opened input file of any format.

@@ -337,7 +337,7 @@ fn wraps_of(epoch: u64, period: u64) -> u64 {
 
 impl TagSource for Records {
     fn file(&self) -> InputFile {
-        InputFile { path: self.map.path().to_path_buf(), size_bytes: self.map.size_bytes(), format: "records" }
+        InputFile { path: self.map.path().to_path_buf(), size_bytes: self.map.size_bytes(), format: crate::read::InputKind::Records }
     }
 
     fn channels(&self) -> Result<Vec<ChannelTags<'_>>> {
@@ -419,7 +419,7 @@ mod tests {
             bytes.extend_from_slice(&[ch, 0, 0, 0]);
         }
         std::fs::write(&p, &bytes).unwrap();
-        let r = Records::open(&p, l, ReadOptions::default()).unwrap();
+        let r = Records::open(&p, l, ReadOptions::mapped()).unwrap();
         let c = r.channels().unwrap();
         assert_eq!(&*c[0].times_ps, &[250, 266]);
         assert_eq!(&*c[1].times_ps, &[259]);
@@ -447,7 +447,7 @@ mod tests {
             bytes.extend_from_slice(&[1, 0, 0, 0]);
         }
         std::fs::write(&p, &bytes).unwrap();
-        let r = Records::open(&p, layout("rec=8,time=0:4,chan=4:1,tick_ps=1,wrap=12"), ReadOptions::default()).unwrap();
+        let r = Records::open(&p, layout("rec=8,time=0:4,chan=4:1,tick_ps=1,wrap=12"), ReadOptions::mapped()).unwrap();
         assert_eq!(&*r.channels().unwrap()[0].times_ps, &[4080, 4112]);
     }
 

@@ -1,13 +1,35 @@
-//! The file checker behind `inspect`: per-channel statistics (events, first/last, span,
+//! The inspect job, the file checker: per-channel statistics (events, first/last, span,
 //! mean rate, smallest gap, out-of-order steps, duplicates) gathered in one bounded-memory
 //! pass over lenient chunks, so order problems are counted instead of failing.
 
-use super::{InputFile, TagSource};
-use crate::progress::Progress;
+use super::inputs::BlockInputs;
+use super::Context;
+use crate::read::{InputFile, ReadOptions, TagSource};
+use crate::sys::progress::Progress;
 use crate::tags::{live_time_ps, rate_hz};
 use crate::{Channel, Error, Result};
 use serde::Serialize;
 use std::collections::BTreeMap;
+
+/// Inspect tag files.
+#[derive(Debug, Clone)]
+pub struct InspectJob {
+    pub ctx: Context,
+    /// The inputs and read options; the order check is always lenient here.
+    pub inputs: BlockInputs,
+}
+
+/// Inspect the job's inputs; order problems are in the report ([`InspectReport::problems`]),
+/// not an error.
+pub fn run(job: &InspectJob) -> Result<InspectReport> {
+    let inputs = BlockInputs { read: ReadOptions { lenient_order: true, ..job.inputs.read }, clock: None, ..job.inputs.clone() };
+    let sources = inputs.open(job.ctx.quiet)?;
+    let total: u64 = sources.iter().map(|s| s.event_count()).sum();
+    let progress = Progress::items("inspect", total, job.ctx.quiet);
+    let report = inspect(&sources, &progress)?;
+    progress.finish();
+    Ok(report)
+}
 
 /// Events per chunk while inspecting (bounded memory on any input size).
 const CHUNK_EVENTS: usize = 1 << 20;

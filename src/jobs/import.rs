@@ -1,11 +1,13 @@
-//! Import: any opened inputs → one container file, in one streaming pass with bounded
+//! The import job: any inputs → one container file, in one streaming pass with bounded
 //! memory. Each channel spills to a temporary beside the output; the container is then
 //! assembled from the spills and renamed into place (all temporaries removed on any exit).
 
-use super::channel_array::write_u64s_le;
-use super::container::{unix_now_s, ContainerInfo, ContainerWriter};
-use super::layout::Tick;
-use super::TagSource;
+use crate::read::channel_array::write_u64s_le;
+use crate::read::container::{unix_now_s, ContainerInfo, ContainerWriter};
+use super::inputs::BlockInputs;
+use super::Context;
+use crate::read::layout::{RecordLayout, Tick};
+use crate::read::TagSource;
 use crate::sys::atomic::AtomicOutput;
 use crate::sys::progress::Progress;
 use crate::{Channel, Error, Result};
@@ -13,6 +15,30 @@ use std::collections::BTreeMap;
 use std::fs::File;
 use std::io::{BufReader, BufWriter, Read, Write};
 use std::path::{Path, PathBuf};
+
+/// Convert inputs into one container file.
+#[derive(Debug, Clone)]
+pub struct ImportJob {
+    pub ctx: Context,
+    pub inputs: BlockInputs,
+    /// The container to write (convention: `.tsieve`).
+    pub output: PathBuf,
+    /// Replace `output` if it exists.
+    pub force: bool,
+}
+
+/// Import the job's inputs; the header records the record layout's tick (per-channel
+/// arrays are 1 ps already).
+pub fn run(job: &ImportJob) -> Result<ImportSummary> {
+    let layout = job.inputs.layout.as_deref().map(RecordLayout::from_arg).transpose()?;
+    let sources = BlockInputs { clock: None, ..job.inputs.clone() }.open(job.ctx.quiet)?;
+    let tick = layout.as_ref().map_or(Tick { fs: 1000 }, |l| l.tick);
+    let total: u64 = sources.iter().map(|s| s.event_count()).sum();
+    let progress = Progress::items("import", total, job.ctx.quiet);
+    let summary = import(&sources, &job.output, job.force, tick, &progress)?;
+    progress.finish();
+    Ok(summary)
+}
 
 /// Events per chunk read from the inputs.
 const CHUNK_EVENTS: usize = 1 << 20;
@@ -95,7 +121,7 @@ fn copy_spill(path: &Path, w: &mut ContainerWriter) -> Result<()> {
         if n == 0 {
             return Ok(());
         }
-        w.push(&super::mapping::decode_u64s_le(&buf[..n]))?;
+        w.push(&crate::read::mapping::decode_u64s_le(&buf[..n]))?;
     }
 }
 

@@ -1,19 +1,24 @@
-//! The whole job on simulated demo data (the invented Larch–Rowan link): simulate →
-//! inspect → scan (finds the delays) → sweep (picks the window) → count → CHSH, plus a
-//! visibility series; every table and plot goes into one folder.
+//! The demo job on simulated data (the invented Larch–Rowan link): the same jobs a user
+//! runs, in order: simulate → inspect → scan (finds the delays) → sweep (picks the window)
+//! → chsh (counts every block), plus a visibility series; every table and plot in one folder.
 
+use super::chsh::{self, ChshJob};
+use super::count::{OffPeakChoice, Sourced};
+use super::inputs::{BlockInputs, DelaySources};
+use super::inspect::{self, InspectJob};
+use super::pass::PassMode;
+use super::scan::{self, ScanJob};
+use super::simulate::{self as simulate_job, SimulateJob};
+use super::sweep::{self, SweepJob};
+use super::Context;
 use crate::analysis::bell3::Convention;
-use crate::analysis::chsh::ChshReport;
-use crate::analysis::visibility::{fit_visibility, VisibilityFit};
-use crate::engine::{accidentals, count::DEFAULT_SLICE_PS, scan, sweep, CountConfig, Criterion, Delays, ScanConfig};
+use crate::engine::{count::DEFAULT_SLICE_PS, sweep::window_range, Criterion};
 use crate::manifest::{InputFormat, Manifest, Settings, Setup};
-use crate::output::{self, layout, layout_analysis, plot, provenance::Provenance, AttrValue, Format};
-use crate::pipeline::{self, PassMode};
-use crate::sys::progress::Progress;
+use crate::output::{self, layout, layout_analysis, plot, Format};
 use crate::read::ReadOptions;
 use crate::simulate::{self, plan, RunConfig, SourceModel};
 use crate::{Channel, Error, Result};
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
 /// Demo settings (the scenario's defaults).
 #[derive(Debug, Clone)]
@@ -23,6 +28,8 @@ pub struct DemoConfig {
     /// Length of each CHSH block, s.
     pub duration_s: f64,
     pub quiet: bool,
+    /// The command line recorded in provenance.
+    pub command_line: Vec<String>,
 }
 
 /// A delay found by the scan beside the simulated truth.
@@ -103,22 +110,21 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
         std::fs::create_dir_all(d).map_err(|e| Error::io(d, e))?;
     }
     let q = cfg.quiet;
+    // The inner jobs show no progress of their own; the demo says what it does.
+    let inner = Context { quiet: true, command_line: cfg.command_line.clone() };
     let mut plots = Vec::new();
 
     say(q, "simulating the Larch–Rowan link (4 blocks, CHSH settings)");
     let run = chsh_run(cfg);
-    let total_ms = (run.duration_s * 1e3) as u64 * run.blocks.len() as u64;
-    let progress = Progress::items("simulate ms", total_ms, q);
-    let summary = simulate::write_run(&run, &dir.join("chsh-run"), true, &progress)?;
-    progress.finish();
+    let simulated = SimulateJob { ctx: Context { quiet: q, ..inner.clone() }, run: run.clone(), second_site: None, output: dir.join("chsh-run"), force: true };
+    let summary = simulate_job::run(&simulated)?;
     let m = Manifest::load(&summary.manifest)?;
-    let opts = ReadOptions::default();
+    let block_inputs = |b: &crate::manifest::BlockSpec| BlockInputs { inputs: m.block_inputs(b), layout: None, read: ReadOptions::mapped(), clock: None };
 
     say(q, "inspecting the tag files");
     let mut events = 0;
     for b in &m.blocks {
-        let sources = pipeline::open_block(&m.block_inputs(b), None, opts)?;
-        let report = crate::read::check::inspect(&sources, &Progress::hidden())?;
+        let report = inspect::run(&InspectJob { ctx: inner.clone(), inputs: block_inputs(b) })?;
         if let Some(p) = report.problems().first() {
             return Err(Error::Usage(format!("demo: block {}: {p}", b.name)));
         }
@@ -127,30 +133,47 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
 
     say(q, "scanning block ab for the delays (reference channel 1)");
     let ab = m.blocks.first().ok_or_else(|| Error::Usage("demo: no blocks".into()))?;
-    let ab_sources = pipeline::open_block(&m.block_inputs(ab), None, opts)?;
-    let coarse = ScanConfig { pairs: vec![], delays: Delays::default(), half_range_ps: 100_000, bin_ps: 20 };
-    let coarse_block = pipeline::scan_sources("ab", &ab_sources, &coarse, PassMode::Auto, true)?;
-    let channels: Vec<_> = coarse_block.singles.iter().map(|s| s.channel).collect();
-    let delays = scan::propose_delays(&coarse_block.scans, 1, &channels);
+    let scan_job = |pairs: Vec<(Channel, Channel)>, delays: DelaySources, half_range_ps: u64, bin_ps: u64, reference: Option<Channel>| ScanJob {
+        ctx: inner.clone(),
+        label: "ab".into(),
+        inputs: block_inputs(ab),
+        pass: PassMode::Auto,
+        pairs,
+        delays,
+        half_range_ps,
+        bin_ps,
+        reference,
+        delays_file: dir.join("delays.toml"),
+        document: false,
+    };
+    let coarse = scan::run(&scan_job(vec![], DelaySources::default(), 100_000, 20, Some(1)))?;
+    let delays = coarse.proposal.ok_or_else(|| Error::Usage("demo: the scan proposed no delays".into()))?;
     if let Some((c, why)) = delays.not_found.iter().next() {
         return Err(Error::Usage(format!("demo: the scan found no delay for channel {c}: {why}")));
     }
-    output::atomic::write_bytes(&dir.join("delays.toml"), delays.to_toml().as_bytes(), true)?;
+    let delays_file = dir.join("delays.toml");
+    output::atomic::write_bytes(&delays_file, delays.to_toml().as_bytes(), true)?;
+    let found = DelaySources { file: Some(delays_file.clone()), flags: vec![] };
+    let coarse_block = coarse.block;
 
-    let pairs = pipeline::role_pairs(&m)?;
-    let fine = ScanConfig { pairs: pairs.clone(), delays: delays.clone(), half_range_ps: 2_000, bin_ps: 10 };
-    let fine_block = pipeline::scan_sources("ab", &ab_sources, &fine, PassMode::Auto, true)?;
+    let pairs = chsh::role_pairs(&m)?;
+    let fine_block = scan::run(&scan_job(pairs.clone(), found.clone(), 2_000, 10, None))?.block;
 
     say(q, "sweeping the window on block ab");
-    let base = CountConfig {
+    let sweep_job = SweepJob {
+        ctx: inner.clone(),
+        label: "ab".into(),
+        inputs: block_inputs(ab),
+        pass: PassMode::Auto,
         pairs: pairs.clone(),
-        delays: delays.clone(),
-        window_ps: 1,
-        offsets_ps: vec![],
+        delays: found.clone(),
+        windows_ps: window_range(50, 3000, 50)?,
+        criterion: Criterion::MaxNetSignificance,
+        offpeak: OffPeakChoice::Default,
         slice_ps: DEFAULT_SLICE_PS,
+        document: false,
     };
-    let windows = sweep::window_range(50, 3000, 50)?;
-    let sweep_block = pipeline::sweep_sources("ab", &ab_sources, &base, &windows, &sweep::OffPeak::PerWindow, Criterion::MaxNetSignificance, PassMode::Auto, true)?;
+    let sweep_block = sweep::run(&sweep_job)?.block;
     // One window for all four pairs: the widest of their recommendations keeps every peak.
     let window_ps = sweep_block.sweeps.iter().map(|s| s.recommended_window_ps).max().unwrap_or(1000);
 
@@ -171,11 +194,21 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
     }
 
     say(q, &format!("counting every block at w = {window_ps} ps and evaluating CHSH"));
-    let count_cfg = CountConfig { window_ps, offsets_ps: accidentals::default_offsets_ps(window_ps), ..base };
-    let (blocks, files) = pipeline::count_run(&m, &count_cfg, opts, PassMode::Auto, true)?;
-    let car = blocks[0].coincidences.iter().map(|r| ((r.a, r.b), r.car)).collect();
-    let settings = pipeline::setting_counts(&m, &blocks)?;
-    let report: ChshReport = pipeline::chsh_report(&settings).ok_or_else(|| Error::Usage("demo: CHSH settings missing".into()))??;
+    let chsh_job = |manifest: PathBuf| ChshJob {
+        ctx: inner.clone(),
+        manifest,
+        window_ps: Some(Sourced { value: window_ps, from: "the sweep's recommended window".into() }),
+        delays: found.clone(),
+        offpeak: OffPeakChoice::Default,
+        slice_ps: DEFAULT_SLICE_PS,
+        read: ReadOptions::mapped(),
+        pass: PassMode::Auto,
+        convention: Convention::Correlated,
+        document: false,
+    };
+    let counted = chsh::run(&chsh_job(summary.manifest.clone()))?;
+    let car = counted.blocks[0].coincidences.iter().map(|r| ((r.a, r.b), r.car)).collect();
+    let report = counted.chsh.clone().ok_or_else(|| Error::Usage("demo: CHSH settings missing".into()))?;
     let p = plots_dir.join("chsh-correlations.png");
     plot::plot_correlations(&report, Some(plot::ModelLine { visibility: run.source.visibility, source: "simulated" }), &p, true)?;
     plots.push(p);
@@ -186,31 +219,26 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
         b.label = label.into();
     }
     let run_h5 = dir.join("run.h5");
-    let prov = demo_provenance(&summary.manifest, &files, window_ps, &delays)?;
-    let mut doc = layout::run_document_parts(&blocks, &scan_blocks, std::slice::from_ref(&sweep_block), &prov);
+    let prov = super::provenance(&inner, "demo", &[&counted.config], &counted.files)?;
+    let mut doc = layout::run_document_parts(&counted.blocks, &scan_blocks, std::slice::from_ref(&sweep_block), &prov);
     doc.root.groups.push(layout_analysis::chsh_group(&report));
     output::write_document(&doc, Some(&run_h5), Format::Hdf5, true)?;
 
     say(q, "simulating and fitting a visibility series (Rowan 0°–180°)");
-    let series = series_run(cfg);
-    let ssum = simulate::write_run(&series, &dir.join("series-run"), true, &Progress::hidden())?;
-    let sm = Manifest::load(&ssum.manifest)?;
-    let (sblocks, sfiles) = pipeline::count_run(&sm, &count_cfg, opts, PassMode::Auto, true)?;
-    let series_pts = pipeline::visibility_series(&sm, &sblocks)?;
-    let fits: Vec<(VisibilityFit, _)> =
-        series_pts.into_iter().map(|(basis, pts)| fit_visibility(&basis, &pts).map(|f| (f, pts))).collect::<Result<_>>()?;
-    for (f, pts) in &fits {
+    let series = SimulateJob { ctx: inner.clone(), run: series_run(cfg), second_site: None, output: dir.join("series-run"), force: true };
+    let ssum = simulate_job::run(&series)?;
+    let sc = chsh::run(&chsh_job(ssum.manifest.clone()))?;
+    for (f, pts) in &sc.visibility {
         let p = plots_dir.join(format!("visibility-{}.png", layout_analysis::sanitize(&f.label)));
         plot::plot_visibility(f, pts, &p, true)?;
         plots.push(p);
     }
     let series_h5 = dir.join("series.h5");
-    let sprov = demo_provenance(&ssum.manifest, &sfiles, window_ps, &delays)?;
-    let mut sdoc = layout::run_document(&sblocks, &sprov);
-    sdoc.root.groups.push(layout_analysis::visibility_group(&fits));
-    let sset = pipeline::setting_counts(&sm, &sblocks)?;
-    if let Some((angles, r)) = pipeline::bell3_search(&sset, Convention::Correlated) {
-        sdoc.root.groups.push(layout_analysis::bell3_group(&r, angles));
+    let sprov = super::provenance(&inner, "demo", &[&sc.config], &sc.files)?;
+    let mut sdoc = layout::run_document(&sc.blocks, &sprov);
+    sdoc.root.groups.push(layout_analysis::visibility_group(&sc.visibility));
+    if let Some((angles, r)) = &sc.bell3 {
+        sdoc.root.groups.push(layout_analysis::bell3_group(r, *angles));
     }
     output::write_document(&sdoc, Some(&series_h5), Format::Hdf5, true)?;
 
@@ -230,20 +258,8 @@ pub fn run_demo(cfg: &DemoConfig) -> Result<DemoSummary> {
         s_corrected: report.corrected.as_ref().map(|c| (c.primary().s, c.primary().sigma)),
         violation_sigma: primary.violation_sigma,
         verdict: primary.verdict(),
-        visibility: fits.first().map(|(f, _)| (f.visibility.value, f.visibility.sigma)),
-        tables: vec![run_h5, series_h5, dir.join("delays.toml")],
+        visibility: sc.visibility.first().map(|(f, _)| (f.visibility.value, f.visibility.sigma)),
+        tables: vec![run_h5, series_h5, delays_file],
         plots,
     })
-}
-
-fn demo_provenance(manifest: &Path, files: &[PathBuf], window_ps: u64, delays: &Delays) -> Result<Provenance> {
-    let mut p = Provenance::new(std::env::args().collect())
-        .param("command", AttrValue::Str("demo".into()))
-        .param("window_ps", AttrValue::U64(window_ps))
-        .param_json("delays_ps", &delays.by_channel)
-        .input(manifest)?;
-    for f in files {
-        p = p.input(f)?;
-    }
-    Ok(p)
 }
